@@ -82,6 +82,11 @@ type Reference struct {
 	// histogram on them (all rows), the expected distribution for drift (PSI).
 	PropensityEdges  []float64 `json:"propensity_edges"`
 	PropensityCounts []float64 `json:"propensity_counts"`
+	// PropensityDeciles are the distinct interior deciles of the fit
+	// sample's propensities and DecileCounts the sample's counts in the bins
+	// they make: the expected distribution for the population stability index.
+	PropensityDeciles []float64 `json:"propensity_deciles"`
+	DecileCounts      []float64 `json:"propensity_decile_counts"`
 	// WeightQuantiles maps "ate", "att", "atc", "overlap" and the same with
 	// "/stabilized" to the fit sample's weight quantiles (unclipped
 	// propensities) on a grid of q, for --truncate-quantile: the cap is
