@@ -1,0 +1,457 @@
+package fit
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"runtime"
+	"sync"
+	"sync/atomic"
+)
+
+// Separation probing: rows whose fitted probability is this close to their
+// own outcome (|η| above the bound, on the right side) are candidates for
+// separation (1/(1+e^10) ≈ 4.5e-5) or are counted as fitted at the
+// boundary (1/(1+e^15) ≈ 3e-7). Common practice, no published source.
+const (
+	candidateEta = 10
+	boundaryEta  = 15
+	probeSteps   = 10
+	probeStepTol = 1e-8 // a converged step is this small in standardized units
+)
+
+// FitLogistic fits P(y=1|x) = 1/(1+exp(−(β0 + Σ_j β_j x_j))) by
+// Newton–Raphson, which for the canonical logit link is iteratively
+// reweighted least squares (McCullagh & Nelder 1989, §2.5, §4.4).
+//
+// The terms are standardized internally, z_j = (x_j − m_j)/s_j with s_j
+// the sample SD, and the fit runs on z. With opt.Ridge = λ > 0 it
+// maximizes the penalized log-likelihood
+//
+//	ℓ(β) − (λ/2) Σ_{j≥1} (s_j β_j)²
+//
+// (a ridge on the standardized coefficients γ_j = s_j β_j; the intercept
+// is not penalized). Each step solves (Z'WZ + λD) δ = Z'(y−μ) − λDγ by
+// Cholesky, W = diag(μ(1−μ)), D = diag(0,1,…,1), and is halved while the
+// penalized deviance −2ℓ + λΣγ_j² increases. Iteration stops when the
+// penalized deviance changes by less than opt.Tol relative to
+// |deviance| + 0.1, or after opt.MaxIter steps.
+//
+// Coefficients are mapped back to the original scale exactly, and Cov is
+// the inverse observed (penalized) information A (Z'WZ + λD)⁻¹ Aᵀ at the
+// optimum, A the linear map from γ to β. LogLik and Deviance (= −2 LogLik)
+// are unpenalized.
+//
+// Without ridge, complete or quasi-complete separation and collinear or
+// constant terms are *FitError values naming the terms. With ridge the
+// model is fitted anyway and the problem is recorded in Warnings (a
+// constant term then gets coefficient 0).
+func FitLogistic(ctx context.Context, X Design, y []float64, terms []string, opt GLMOptions) (*GLM, error) {
+	return fitLogistic(ctx, X, y, terms, opt, true)
+}
+
+// fitLogistic is FitLogistic; screen=false skips the one-term separation
+// screen so that tests reach the detection after Newton's method.
+func fitLogistic(ctx context.Context, X Design, y []float64, terms []string, opt GLMOptions, screen bool) (*GLM, error) {
+	if err := checkInputs(X, y, terms); err != nil {
+		return nil, err
+	}
+	var n1 int
+	for i, v := range y {
+		switch v {
+		case 1:
+			n1++
+		case 0:
+		default:
+			return nil, &FitError{Reason: ReasonNotBinary, Detail: fmt.Sprintf("%v at row %d", v, i)}
+		}
+	}
+	if n1 == 0 || n1 == X.N {
+		return nil, &FitError{Reason: ReasonNoVariation, Detail: fmt.Sprintf("all %d rows are %v", X.N, y[0])}
+	}
+	tol, maxIter := opt.Tol, opt.MaxIter
+	if tol <= 0 {
+		tol = defaultTol
+	}
+	if maxIter <= 0 {
+		maxIter = defaultMaxIter
+	}
+	lambda := opt.Ridge
+	if lambda < 0 || math.IsNaN(lambda) || math.IsInf(lambda, 0) {
+		return nil, fmt.Errorf("fit: ridge penalty %v must be a finite number ≥ 0", lambda)
+	}
+	d, err := standardize(ctx, X, terms)
+	if err != nil {
+		return nil, err
+	}
+	g := &GLM{Family: FamilyBinomial, Terms: append([]string(nil), terms...), N: X.N, Tol: tol, Ridge: lambda}
+	if len(d.konst) > 0 {
+		names := constantNames(terms, d)
+		if lambda == 0 {
+			return nil, &FitError{Reason: ReasonCollinear, Terms: names, Detail: "constant in the sample, collinear with the intercept"}
+		}
+		g.Warnings = append(g.Warnings, fmt.Sprintf("constant terms %q: coefficient fixed at 0", names))
+	}
+	if screen {
+		if reason, names := screenSeparation(ctx, d, y, terms); reason != "" {
+			if lambda == 0 {
+				return nil, &FitError{Reason: reason, Terms: names, Detail: "the fitted probabilities would reach 0 or 1 and the coefficients diverge"}
+			}
+			g.Warnings = append(g.Warnings, fmt.Sprintf("%s by %q: coefficients are held finite by the ridge penalty only", reason, names))
+		}
+	}
+
+	p := d.p()
+	n := X.N
+	gamma := make([]float64, p)
+	ybar := float64(n1) / float64(n)
+	gamma[0] = math.Log(ybar / (1 - ybar))
+	eta := make([]float64, n)
+	etaNew := make([]float64, n)
+	ll, err := logLik(ctx, d, y, gamma, eta)
+	if err != nil {
+		return nil, err
+	}
+	pdev := penDev(ll, gamma, lambda)
+	cp := newCrossprod(n, p)
+	fill := func(lo, hi int, sw, r []float64) {
+		for i := range sw {
+			mu, q, w := logistic(eta[lo+i])
+			sw[i] = math.Sqrt(w)
+			if y[lo+i] == 1 {
+				r[i] = q
+			} else {
+				r[i] = -mu
+			}
+		}
+	}
+	grad := make([]float64, p)
+	trial := make([]float64, p)
+	// step does one Newton step with halving from gamma; it reports the
+	// step taken and whether the penalized deviance could be lowered.
+	step := func(delta []float64) (taken []float64, ok bool, err error) {
+		t := 1.0
+		for range 60 {
+			for a := range p {
+				trial[a] = gamma[a] + t*delta[a]
+			}
+			llNew, err := logLik(ctx, d, y, trial, etaNew)
+			if err != nil {
+				return nil, false, err
+			}
+			pd := penDev(llNew, trial, lambda)
+			if pd <= pdev {
+				taken = make([]float64, p)
+				for a := range p {
+					taken[a] = t * delta[a]
+				}
+				copy(gamma, trial)
+				eta, etaNew = etaNew, eta
+				ll, pdev = llNew, pd
+				return taken, true, nil
+			}
+			t /= 2
+		}
+		return nil, false, nil
+	}
+	gradient := func() []float64 {
+		for a := range p {
+			grad[a] = cp.G[a]
+			if a > 0 {
+				grad[a] -= lambda * gamma[a]
+			}
+		}
+		return grad
+	}
+
+	singular := false
+	for g.Iterations < maxIter {
+		if err := ctx.Err(); err != nil {
+			return nil, err
+		}
+		if err := cp.compute(ctx, d, fill); err != nil {
+			return nil, err
+		}
+		if g.Iterations == 0 {
+			// Here μ is constant, so Z'WZ ∝ Z'Z: an exact collinearity check.
+			if coll := collinear(cp.H, p); len(coll) > 0 {
+				names := termNames(terms, d, coll)
+				if lambda == 0 {
+					return nil, &FitError{Reason: ReasonCollinear, Terms: names, Detail: "a linear combination of them is constant"}
+				}
+				g.Warnings = append(g.Warnings, fmt.Sprintf("collinear terms %q: identified by the ridge penalty only", names))
+			}
+		}
+		delta, _, ok := solve(cp.H, p, lambda, gradient())
+		if !ok {
+			singular = true
+			break
+		}
+		g.Iterations++
+		before := pdev
+		_, ok, err := step(delta)
+		if err != nil {
+			return nil, err
+		}
+		if !ok {
+			// No step lowers the deviance: the optimum to rounding.
+			g.Converged = true
+			break
+		}
+		if math.Abs(before-pdev)/(math.Abs(pdev)+0.1) < tol {
+			g.Converged = true
+			break
+		}
+	}
+
+	if lambda == 0 {
+		if ferr, err := probeSeparation(ctx, d, y, terms, func() []float64 { return eta }, cp, fill, gradient, step, singular); err != nil {
+			return nil, err
+		} else if ferr != nil {
+			return nil, ferr
+		}
+	}
+	if err := cp.compute(ctx, d, fill); err != nil {
+		return nil, err
+	}
+	_, ch, ok := solve(cp.H, p, lambda, cp.G)
+	if !ok {
+		return nil, &FitError{Reason: ReasonSingular, Detail: "the information matrix at the fitted coefficients is not positive definite"}
+	}
+	covG, err := inverse(ch, p)
+	if err != nil {
+		return nil, &FitError{Reason: ReasonSingular, Detail: err.Error()}
+	}
+	g.Coef, g.Cov = d.toOriginal(gamma, covG, len(X.Cols))
+	g.SE = seFromCov(g.Cov)
+	g.LogLik = ll
+	g.Deviance = -2 * ll
+	if !g.Converged {
+		g.Warnings = append(g.Warnings, fmt.Sprintf("did not converge in %d iterations", g.Iterations))
+	}
+	return g, nil
+}
+
+// probeSeparation decides, after Newton's method, whether coefficients
+// diverge. When rows are fitted near their own outcome it takes more
+// Newton steps: at a finite optimum they shrink quadratically, under
+// separation they keep their size along the diverging direction. Rows
+// then fitted within 3e-7 of 0/1 are the separated ones: with all rows
+// among them the separation is complete; otherwise the other rows leave a
+// direction unidentified (the null space of their Z'Z), which names the
+// terms. It returns a *FitError for separation, else nil.
+func probeSeparation(ctx context.Context, d *stdDesign, y []float64, terms []string, curEta func() []float64,
+	cp *crossprod, fill fillFunc, gradient func() []float64,
+	step func([]float64) ([]float64, bool, error), singular bool) (*FitError, error) {
+	if countBoundary(curEta(), y, candidateEta) == 0 {
+		if singular {
+			return &FitError{Reason: ReasonSingular, Detail: "the information matrix became singular during the fit"}, nil
+		}
+		return nil, nil
+	}
+	p := d.p()
+	var last []float64
+	diverging := false
+	for range probeSteps {
+		if err := cp.compute(ctx, d, fill); err != nil {
+			return nil, err
+		}
+		delta, _, ok := solve(cp.H, p, 0, gradient())
+		if !ok {
+			delta = pseudoSolve(cp.H, p, gradient())
+		}
+		if delta == nil {
+			break
+		}
+		taken, ok, err := step(delta)
+		if err != nil {
+			return nil, err
+		}
+		if !ok {
+			break
+		}
+		last = taken
+		big := 0.0
+		for _, v := range taken {
+			big = math.Max(big, math.Abs(v))
+		}
+		if big < probeStepTol {
+			diverging = false
+			break
+		}
+		diverging = true
+	}
+	eta := curEta()
+	nb := countBoundary(eta, y, boundaryEta)
+	var null []int
+	if nb > 0 && nb < d.n {
+		// Z'Z over the rows not at the boundary.
+		unit := func(lo, hi int, sw, r []float64) {
+			for i := range sw {
+				e := eta[lo+i]
+				if (e > boundaryEta && y[lo+i] == 1) || (e < -boundaryEta && y[lo+i] == 0) {
+					sw[i] = 0
+				} else {
+					sw[i] = 1
+				}
+				r[i] = 0
+			}
+		}
+		m := newCrossprod(d.n, p)
+		if err := m.compute(ctx, d, unit); err != nil {
+			return nil, err
+		}
+		null = collinear(m.H, p)
+	}
+	if !diverging && len(null) == 0 && !(nb == d.n) {
+		if singular {
+			return &FitError{Reason: ReasonSingular, Detail: "the information matrix became singular during the fit"}, nil
+		}
+		return nil, nil
+	}
+	reason := ReasonQuasiCompleteSeparation
+	if nb == d.n {
+		reason = ReasonCompleteSeparation
+	}
+	coords := null
+	if len(coords) == 0 && last != nil {
+		coords = largest(last, 1e-3)
+	}
+	return &FitError{Reason: reason, Terms: termNames(terms, d, coords),
+		Detail: fmt.Sprintf("%d of %d rows are fitted within 3e-7 of their outcome and the coefficients diverge", nb, d.n)}, nil
+}
+
+// largest returns the coordinates a ≥ 1 with |v_a| > rel·max_b≥1 |v_b|.
+func largest(v []float64, rel float64) []int {
+	top := 0.0
+	for _, x := range v[1:] {
+		top = math.Max(top, math.Abs(x))
+	}
+	var out []int
+	for a := 1; a < len(v); a++ {
+		if top > 0 && math.Abs(v[a]) > rel*top {
+			out = append(out, a)
+		}
+	}
+	return out
+}
+
+func countBoundary(eta, y []float64, bound float64) int {
+	n := 0
+	for i, e := range eta {
+		if (e > bound && y[i] == 1) || (e < -bound && y[i] == 0) {
+			n++
+		}
+	}
+	return n
+}
+
+// logistic returns μ = 1/(1+e^−η), 1−μ and μ(1−μ) without cancellation.
+func logistic(eta float64) (mu, q, w float64) {
+	if eta >= 0 {
+		e := math.Exp(-eta)
+		mu = 1 / (1 + e)
+		q = e * mu
+	} else {
+		e := math.Exp(eta)
+		q = 1 / (1 + e)
+		mu = e * q
+	}
+	return mu, q, mu * q
+}
+
+// softplus is log(1+e^η) without overflow.
+func softplus(eta float64) float64 {
+	if eta > 0 {
+		return eta + math.Log1p(math.Exp(-eta))
+	}
+	return math.Log1p(math.Exp(eta))
+}
+
+func penDev(ll float64, gamma []float64, lambda float64) float64 {
+	pd := -2 * ll
+	if lambda > 0 {
+		var s float64
+		for _, g := range gamma[1:] {
+			s += g * g
+		}
+		pd += lambda * s
+	}
+	return pd
+}
+
+// logLik writes η for gamma into eta and returns the Bernoulli
+// log-likelihood Σ y_i η_i − log(1+e^η_i), summed per chunk in order.
+func logLik(ctx context.Context, d *stdDesign, y, gamma, eta []float64) (float64, error) {
+	parts := make([]float64, (d.n+chunkRows-1)/chunkRows)
+	err := forChunks(ctx, d.n, func(c, lo, hi int, _ *scratch) {
+		d.linearPredictor(gamma, lo, hi, eta)
+		var s float64
+		for i := lo; i < hi; i++ {
+			e := eta[i]
+			s += y[i]*e - softplus(e)
+		}
+		parts[c] = s
+	})
+	if err != nil {
+		return 0, err
+	}
+	var s float64
+	for _, v := range parts {
+		s += v
+	}
+	return s, nil
+}
+
+// screenSeparation finds terms that alone separate the outcome: every
+// treated row on one side of a value and every control row on the other
+// (complete), or touching it (quasi-complete), which catches the common
+// case of a level seen in one arm only before any iteration.
+func screenSeparation(ctx context.Context, d *stdDesign, y []float64, terms []string) (string, []string) {
+	k := len(d.cols)
+	kind := make([]int, k) // 0 none, 1 quasi, 2 complete
+	var next atomic.Int64
+	var wg sync.WaitGroup
+	for range min(runtime.GOMAXPROCS(0), max(k, 1)) {
+		wg.Go(func() {
+			for {
+				a := int(next.Add(1) - 1)
+				if a >= k || ctx.Err() != nil {
+					return
+				}
+				lo0, hi0 := math.Inf(1), math.Inf(-1)
+				lo1, hi1 := math.Inf(1), math.Inf(-1)
+				for i, v := range d.cols[a] {
+					if y[i] == 1 {
+						lo1, hi1 = math.Min(lo1, v), math.Max(hi1, v)
+					} else {
+						lo0, hi0 = math.Min(lo0, v), math.Max(hi0, v)
+					}
+				}
+				switch {
+				case hi0 < lo1 || hi1 < lo0:
+					kind[a] = 2
+				case hi0 == lo1 || hi1 == lo0:
+					kind[a] = 1
+				}
+			}
+		})
+	}
+	wg.Wait()
+	var complete, quasi []string
+	for a, kd := range kind {
+		switch kd {
+		case 2:
+			complete = append(complete, terms[1+d.idx[a]])
+		case 1:
+			quasi = append(quasi, terms[1+d.idx[a]])
+		}
+	}
+	if len(complete) > 0 {
+		return ReasonCompleteSeparation, complete
+	}
+	if len(quasi) > 0 {
+		return ReasonQuasiCompleteSeparation, quasi
+	}
+	return "", nil
+}
