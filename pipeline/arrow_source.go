@@ -51,7 +51,7 @@ func newArrowSource(path string, in ipcBatches, full *arrow.Schema, p *projectio
 	}, nil
 }
 
-func (s *arrowSource) Schema() *arrow.Schema           { return s.schema }
+func (s *arrowSource) Schema() *arrow.Schema          { return s.schema }
 func (s *arrowSource) RecordBatch() arrow.RecordBatch { return s.cur }
 func (s *arrowSource) Location() Location             { return s.loc }
 func (s *arrowSource) Err() error                     { return s.err }

@@ -102,7 +102,7 @@ func sameSchema(firstPath string, first *arrow.Schema, path string, sc *arrow.Sc
 	return nil
 }
 
-func (s *concatSource) Schema() *arrow.Schema           { return s.schema }
+func (s *concatSource) Schema() *arrow.Schema          { return s.schema }
 func (s *concatSource) RecordBatch() arrow.RecordBatch { return s.rec }
 func (s *concatSource) Err() error                     { return s.err }
 func (s *concatSource) Metadata() arrow.Metadata       { return s.meta }

@@ -193,7 +193,7 @@ func parseBool(v string) (bool, error) {
 	return false, fmt.Errorf("cannot parse %q as true or false", v)
 }
 
-func (s *csvSource) Schema() *arrow.Schema           { return s.schema }
+func (s *csvSource) Schema() *arrow.Schema          { return s.schema }
 func (s *csvSource) RecordBatch() arrow.RecordBatch { return s.cur }
 func (s *csvSource) Location() Location             { return s.loc }
 func (s *csvSource) Err() error                     { return s.err }

@@ -94,7 +94,7 @@ func Open(ctx context.Context, in Input, opt SourceOptions) (Source, error) {
 // the partition columns to append.
 type projection struct {
 	file  string
-	want  []string // nil = every file column
+	want  []string    // nil = every file column
 	avail []Partition // partition columns on offer
 	parts []Partition // partition columns to append, set by resolve
 }

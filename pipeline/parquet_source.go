@@ -3,6 +3,7 @@ package pipeline
 import (
 	"context"
 	"fmt"
+	"os"
 	"runtime"
 	"sync"
 
@@ -57,7 +58,7 @@ func openParquet(path string, p *projection, opt SourceOptions) (Source, error) 
 	err := guard(path, func() error {
 		props := parquet.NewReaderProperties(s.mem)
 		props.BufferedStreamEnabled = true
-		pf, err := file.OpenParquetFile(path, false, file.WithReadProps(props))
+		pf, err := openParquetFile(path, props)
 		if err != nil {
 			return err
 		}
@@ -81,7 +82,7 @@ func openParquet(path string, p *projection, opt SourceOptions) (Source, error) 
 	m := s.fr.Manifest
 	full := make([]arrow.Field, len(m.Fields))
 	for i := range m.Fields {
-		full[i] = *m.Fields[i].Field
+		full[i] = withoutNoFieldID(*m.Fields[i].Field)
 	}
 	kv := s.pf.MetaData().KeyValueMetadata()
 	var keys, vals []string
@@ -107,6 +108,75 @@ func openParquet(path string, p *projection, opt SourceOptions) (Source, error) 
 	return s, nil
 }
 
+// withoutNoFieldID drops the "PARQUET:field_id": "-1" entry pqarrow puts on
+// every field of a file without field ids: it says nothing, and it would
+// make a Parquet input's schema differ from the same columns read elsewhere.
+// Nested fields are left as they are.
+func withoutNoFieldID(f arrow.Field) arrow.Field {
+	const key = "PARQUET:field_id"
+	i := f.Metadata.FindKey(key)
+	if i < 0 || f.Metadata.Values()[i] != "-1" {
+		return f
+	}
+	var keys, vals []string
+	for j, k := range f.Metadata.Keys() {
+		if j != i {
+			keys = append(keys, k)
+			vals = append(vals, f.Metadata.Values()[j])
+		}
+	}
+	f.Metadata = arrow.NewMetadata(keys, vals)
+	return f
+}
+
+// openParquetFile opens path and reads its footer.
+func openParquetFile(path string, props *parquet.ReaderProperties) (*file.Reader, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return nil, err
+	}
+	ok := false
+	defer func() { // also when the footer parser panics
+		if !ok {
+			f.Close()
+		}
+	}()
+	if err := checkParquetMagic(f); err != nil {
+		return nil, err
+	}
+	pf, err := file.NewParquetReader(f, file.WithReadProps(props))
+	if err != nil {
+		return nil, err
+	}
+	ok = true
+	return pf, nil
+}
+
+// checkParquetMagic gives a plain answer for the commonest bad input, a
+// file that is not Parquet at all, before the footer parser tries it.
+func checkParquetMagic(f *os.File) error {
+	info, err := f.Stat()
+	if err != nil {
+		return err
+	}
+	const minSize = 12 // head magic, footer length, tail magic
+	if info.Size() < minSize {
+		return fmt.Errorf("%w: not a Parquet file: %d bytes is too small", ErrMalformed, info.Size())
+	}
+	var head, tail [4]byte
+	if _, err := f.ReadAt(head[:], 0); err != nil {
+		return err
+	}
+	if _, err := f.ReadAt(tail[:], info.Size()-4); err != nil {
+		return err
+	}
+	// PARE ends a file with an encrypted footer; the reader explains that.
+	if string(head[:]) != "PAR1" || (string(tail[:]) != "PAR1" && string(tail[:]) != "PARE") {
+		return fmt.Errorf("%w: not a Parquet file: it does not start and end with PAR1 (truncated, or another format)", ErrMalformed)
+	}
+	return nil
+}
+
 func leafIndices(f *pqarrow.SchemaField, out []int) []int {
 	if f.IsLeaf() {
 		return append(out, f.ColIndex)
@@ -117,7 +187,7 @@ func leafIndices(f *pqarrow.SchemaField, out []int) []int {
 	return out
 }
 
-func (s *parquetSource) Schema() *arrow.Schema           { return s.schema }
+func (s *parquetSource) Schema() *arrow.Schema          { return s.schema }
 func (s *parquetSource) RecordBatch() arrow.RecordBatch { return s.cur }
 func (s *parquetSource) Location() Location             { return s.loc }
 func (s *parquetSource) Err() error                     { return s.err }
@@ -306,7 +376,7 @@ func RowGroups(path string) ([]int64, error) {
 	}
 	var out []int64
 	err := guard(path, func() error {
-		pf, err := file.OpenParquetFile(path, false)
+		pf, err := openParquetFile(path, parquet.NewReaderProperties(nil))
 		if err != nil {
 			return err
 		}
