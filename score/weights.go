@@ -3,6 +3,9 @@ package score
 import (
 	"fmt"
 	"math"
+	"sort"
+
+	"github.com/heft-project/heft/fit"
 )
 
 // Weight returns the weight of a row with treatment t (1 treated, 0 control)
@@ -75,6 +78,55 @@ func weightOf(k kind, t int8, e float64) float64 {
 		}
 	}
 	return math.NaN()
+}
+
+// QuantileGrid returns the q grid of WeightQuantiles: 0, 0.005, …, 1 plus
+// 0.999, 0.9995 and 0.9999, sorted. The extra points give the far tail,
+// where truncation caps usually sit, more resolution than the 0.005 steps.
+func QuantileGrid() []float64 {
+	qs := make([]float64, 0, 204)
+	for i := 0; i <= 200; i++ {
+		qs = append(qs, float64(i)/200)
+	}
+	qs = append(qs, 0.999, 0.9995, 0.9999)
+	sort.Float64s(qs)
+	return qs
+}
+
+// WeightQuantiles computes the fit sample's weight quantiles for every
+// estimand, with and without stabilization (keys "ate", "ate/stabilized",
+// …), on QuantileGrid, as type-7 quantiles (Hyndman & Fan 1996; fit.Quantiles).
+// Weights come from the unclipped propensities e; rows with t = −1 and rows
+// whose weight is not finite (e exactly 0 or 1) are left out, because an
+// infinite quantile cannot be stored in JSON nor serve as a cap. A key whose
+// estimand has no usable row is omitted.
+func WeightQuantiles(e []float64, t []int8, shareTreated float64) map[string][]fit.Quantile {
+	qs := QuantileGrid()
+	out := make(map[string][]fit.Quantile, 2*len(Estimands))
+	w := make([]float64, 0, len(e))
+	ws := make([]float64, 0, len(e))
+	for _, est := range Estimands {
+		k, _ := estimandKind(est)
+		w, ws = w[:0], ws[:0]
+		for i, ei := range e {
+			ti := t[i]
+			if ti != 0 && ti != 1 {
+				continue
+			}
+			v := weightOf(k, ti, ei)
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				continue
+			}
+			w = append(w, v)
+			ws = append(ws, v*armShare(ti, shareTreated))
+		}
+		if len(w) == 0 {
+			continue
+		}
+		out[est] = fit.Quantiles(w, qs)
+		out[StabilizedKey(est)] = fit.Quantiles(ws, qs)
+	}
+	return out
 }
 
 // armShare is the numerator of a stabilized weight: the marginal share of
