@@ -35,15 +35,15 @@ type Scorer struct {
 	policy Policy
 	est    kind
 	share  float64 // fit-sample share treated, for stabilization
-	coef   []float64
+	prop   *fit.GLM
 	mu0    *linear // nil without outcome models
 	mu1    *linear
 }
 
-// linear is one outcome model: coefficients and whether its mean is the
-// logistic of the linear predictor (binomial) or the predictor itself.
+// linear is one outcome model and whether its mean is the logistic of the
+// linear predictor (binomial) or the predictor itself (gaussian).
 type linear struct {
-	coef     []float64
+	g        *fit.GLM
 	logistic bool
 }
 
@@ -72,7 +72,7 @@ func New(m *fit.Model, p Policy) (*Scorer, error) {
 	if err := checkGLM("propensity", g); err != nil {
 		return nil, err
 	}
-	s := &Scorer{policy: p, est: est, share: m.Reference.ShareTreated, coef: g.Coef}
+	s := &Scorer{policy: p, est: est, share: m.Reference.ShareTreated, prop: coefOnly(g)}
 	if p.Stabilize && !(s.share > 0 && s.share < 1) {
 		return nil, fmt.Errorf("--stabilize: the model's share of treated rows is %v, want a value strictly between 0 and 1", s.share)
 	}
@@ -96,10 +96,16 @@ func New(m *fit.Model, p Policy) (*Scorer, error) {
 			default:
 				return nil, fmt.Errorf("model file: %s model family %q is not %q or %q", arm.name, arm.g.Family, fit.FamilyBinomial, fit.FamilyGaussian)
 			}
-			*arm.dst = &linear{coef: arm.g.Coef, logistic: lg}
+			*arm.dst = &linear{g: coefOnly(arm.g), logistic: lg}
 		}
 	}
 	return s, nil
+}
+
+// coefOnly copies the coefficients, so later changes to the model do not
+// reach a Scorer in use.
+func coefOnly(g *fit.GLM) *fit.GLM {
+	return &fit.GLM{Family: g.Family, Terms: g.Terms, Coef: append([]float64(nil), g.Coef...)}
 }
 
 func checkGLM(name string, g *fit.GLM) error {
@@ -136,9 +142,9 @@ func (s *Scorer) HasOutcome() bool { return s.mu0 != nil }
 // errors: row i of the batch is row loc.Row+i of loc.File.
 func (s *Scorer) Score(b *fit.Batch, loc pipeline.Location, out *Scores) error {
 	n := b.N
-	if len(b.X) != len(s.coef)-1 {
+	if len(b.X) != len(s.prop.Coef)-1 {
 		return &pipeline.Error{File: loc.File, RowGroup: loc.RowGroup, Row: -1,
-			Err: fmt.Errorf("encoded batch has %d terms, the model %d (besides the intercept)", len(b.X), len(s.coef)-1)}
+			Err: fmt.Errorf("encoded batch has %d terms, the model %d (besides the intercept)", len(b.X), len(s.prop.Coef)-1)}
 	}
 	for j, x := range b.X {
 		if len(x) < n {
@@ -157,8 +163,8 @@ func (s *Scorer) Score(b *fit.Batch, loc pipeline.Location, out *Scores) error {
 	out.InSupport = growBool(out.InSupport, n)
 	out.Clipped, out.Trimmed, out.Truncated = 0, 0, 0
 
-	e := out.E
-	linearPredictor(s.coef, b.X, e)
+	x := fit.Design{N: n, Cols: b.X}
+	fit.LinearPredictor(s.prop, x, out.E)
 	if err := s.weigh(b.T[:n], loc, out); err != nil {
 		return err
 	}
@@ -168,8 +174,8 @@ func (s *Scorer) Score(b *fit.Batch, loc pipeline.Location, out *Scores) error {
 	}
 	out.Mu0 = grow(out.Mu0, n)
 	out.Mu1 = grow(out.Mu1, n)
-	s.mu0.predict(b.X, out.Mu0)
-	s.mu1.predict(b.X, out.Mu1)
+	s.mu0.predict(x, out.Mu0)
+	s.mu1.predict(x, out.Mu1)
 	return nil
 }
 
@@ -231,28 +237,11 @@ func (s *Scorer) weigh(t []int8, loc pipeline.Location, out *Scores) error {
 	return nil
 }
 
-func (l *linear) predict(x [][]float64, out []float64) {
-	linearPredictor(l.coef, x, out)
+func (l *linear) predict(x fit.Design, out []float64) {
+	fit.LinearPredictor(l.g, x, out)
 	if l.logistic {
 		for i, v := range out {
 			out[i] = logistic(v)
-		}
-	}
-}
-
-// linearPredictor writes β0 + Σ_j β_j x[j][i] into out, a term at a time so
-// each pass reads one column sequentially.
-func linearPredictor(coef []float64, x [][]float64, out []float64) {
-	b0 := coef[0]
-	for i := range out {
-		out[i] = b0
-	}
-	n := len(out)
-	for j, col := range x {
-		c := coef[j+1]
-		col = col[:n]
-		for i, v := range col {
-			out[i] += c * v
 		}
 	}
 }

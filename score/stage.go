@@ -46,6 +46,8 @@ type Stage struct {
 	scores Scores
 }
 
+var _ pipeline.Transform = (*Stage)(nil)
+
 // NewStage returns a Stage encoding with enc and scoring with sc.
 func NewStage(enc BatchEncoder, sc *Scorer, opt StageOptions) *Stage {
 	if opt.Alloc == nil {
