@@ -1,0 +1,651 @@
+package aggregate
+
+import (
+	"encoding/json"
+	"fmt"
+	"math"
+
+	"gonum.org/v1/gonum/floats"
+
+	"github.com/heft-project/heft/fit"
+	"github.com/heft-project/heft/score"
+)
+
+// Estimator names, the inner keys of Estimates.
+const (
+	EstimatorIPW   = "ipw"   // Horvitz–Thompson, unnormalized
+	EstimatorHajek = "hajek" // normalized weights
+	EstimatorAIPW  = "aipw"  // augmented (doubly robust)
+)
+
+// z975 is the 0.975 quantile of the standard normal, for 95% intervals.
+const z975 = 1.959963984540054
+
+// effectsLayout versions the component layout below; states with another
+// layout do not merge.
+const effectsLayout = 1
+
+// EffectsConfig says what the run can estimate. NTerms is the number of model
+// terms including the intercept, len(Model.Propensity.Coef); it sizes the
+// gradients of the second standard error. OutcomeKind is "continuous" or
+// "binary" (fit.Outcome.Kind; "gaussian"/"binomial" are accepted too).
+type EffectsConfig struct {
+	Policy      score.Policy `json:"policy"`
+	HasOutcome  bool         `json:"has_outcome"`
+	OutcomeKind string       `json:"outcome_kind,omitempty"`
+	NTerms      int          `json:"n_terms"`
+}
+
+// Effects accumulates, in one pass and constant memory, everything needed for
+// the effect estimates of every estimand (ATE, ATT, ATC, overlap) by every
+// estimator (Horvitz–Thompson "ipw", Hájek "hajek", augmented "aipw"), their
+// influence-function standard errors and the gradients of the delta-method
+// term. Every field is a sum, so Merge is addition.
+//
+// # Estimators
+//
+// With n the rows used, n₁ = ΣT, n₀ = Σ(1−T), e the propensity as used
+// (after clipping), μ₀, μ₁ the outcome models' predictions:
+//
+//	ipw ATE   (1/n)·Σ[TY/e − (1−T)Y/(1−e)]            (Horvitz & Thompson 1952)
+//	ipw ATT   (1/n₁)·Σ[TY − (1−T)Y·e/(1−e)]            (Hirano, Imbens & Ridder 2003)
+//	ipw ATC   (1/n₀)·Σ[TY(1−e)/e − (1−T)Y]             (the mirror image of ATT)
+//	hajek     ΣwTY/ΣwT − Σw(1−T)Y/Σw(1−T)              (Hájek 1971; Hirano, Imbens & Ridder 2003)
+//	aipw ATE  (1/n)·Σ[μ₁ − μ₀ + T(Y−μ₁)/e − (1−T)(Y−μ₀)/(1−e)]
+//	          (Robins, Rotnitzky & Zhao 1994; Lunceford & Davidian 2004, Stat. Med. 23:2937–2960)
+//	aipw ATT  (1/n₁)·Σ[T(Y−μ₀) − (1−T)(Y−μ₀)·e/(1−e)]
+//	aipw ATC  (1/n₀)·Σ[T(Y−μ₁)(1−e)/e − (1−T)(Y−μ₁)]
+//	          (the doubly robust ATT of Mercatanti & Li 2014, Ann. Appl. Stat. 8:2485–2508,
+//	          and Moodie, Saarela & Stephens 2018, Stat 7:e205 — references from memory; ATC mirrored)
+//	aipw overlap  Σh(μ₁−μ₀)/Σh + ΣT(1−e)(Y−μ₁)/ΣT(1−e) − Σ(1−T)e(Y−μ₀)/Σ(1−T)e,  h = e(1−e)
+//	          (augmented overlap weighting, Mao, Li & Greene 2019, Stat. Methods Med. Res.
+//	          28:2439–2454 — the form as we recall it, from memory)
+//
+// There is no Horvitz–Thompson overlap estimator: its normalizing constant
+// E[e(1−e)] is unknown. Hájek's w is the estimand's weight (score.Weight of
+// the clipped e); for the run's own estimand it is the written weight s.W,
+// so stabilization (which cancels within an arm) and truncation (which does
+// not) apply as written. ipw and aipw use e itself.
+//
+// # Rows
+//
+// Rows with a null treatment (T = −1), an invalid outcome (YValid false) or
+// trimmed (InSupport false: weight 0 for every estimand) are left out of
+// every estimator, so with trimming all estimands refer to the rows kept and
+// n counts those. Rows whose e is not strictly inside (0, 1) or whose Y, w,
+// μ₀ or μ₁ is not finite cannot be weighted and are counted in Degenerate.
+//
+// # Standard errors
+//
+// Each estimator is a smooth function τ̂ = f(S) of a few column sums
+// S_c = Σᵢ v_cᵢ (v per row, e.g. ψ and T for ipw ATT; wTY, wT, w(1−T)Y,
+// w(1−T) for Hájek). Linearizing, the influence function is
+// φᵢ = n·Σ_c a_c (v_cᵢ − S_c/n) with a = ∂f/∂S, and
+//
+//	Var₁ = Σᵢ(φᵢ − φ̄)²/n² = aᵀ(Σᵢ vᵢvᵢᵀ)a − (aᵀS)²/n
+//
+// (the sandwich form with divisor n; for a ratio Σψ/Σd it is
+// Σ(ψ − τ̂d)²/(Σd)², for Hájek's arm mean φᵢ = n·wᵢTᵢ(Yᵢ − μ̂₁)/ΣwT). So the
+// state keeps S and the cross sums Σvᵢvᵢᵀ within each estimator, and Σφ² is
+// recovered exactly by expansion at the end. The expansion cancels when the
+// outcome's mean is large against its spread (about mean²/variance relative
+// digits are lost); sums are compensated to keep the rest. Var₁ treats the
+// fitted models as fixed; for ipw ATE this is known to be conservative
+// (Lunceford & Davidian 2004).
+//
+// The second standard error adds the fit sample's uncertainty in the
+// coefficients by the delta method, treating the fit sample as independent
+// of the scored table:
+//
+//	Var₂ = Var₁ + g_βᵀΣ_β g_β + g_γ₁ᵀΣ_γ₁ g_γ₁ + g_γ₀ᵀΣ_γ₀ g_γ₀,   g = ∂τ̂/∂coefficients
+//
+// with Σ the model file's covariances and g = Σ_c a_c ∂S_c/∂coef, where the
+// ∂S_c/∂coef are accumulated in the pass: ∂e/∂β = e(1−e)·x, x = (1, X…),
+// zero where clipping was active; ∂μ/∂γ = x for a linear model and μ(1−μ)·x
+// for a logistic one. The written weight's derivative is zero where it was
+// truncated, and the trimmed set is held fixed.
+//
+// Intervals are the 95% normal ones, τ̂ ± 1.959963984540054·SE₁.
+type Effects struct {
+	Config EffectsConfig `json:"config"`
+	Layout int           `json:"layout"`
+	// Rows counts rows used; the others count rows left out.
+	Rows           int64 `json:"rows"`
+	NullTreatment  int64 `json:"null_treatment"`
+	InvalidOutcome int64 `json:"invalid_outcome"`
+	Trimmed        int64 `json:"trimmed"`
+	Degenerate     int64 `json:"degenerate"`
+	// NoGradient is set when a batch's terms did not match Config.NTerms;
+	// NoAugmented when outcome predictions were missing though HasOutcome.
+	// The affected standard errors (estimates) are then NaN.
+	NoGradient  bool `json:"no_gradient,omitempty"`
+	NoAugmented bool `json:"no_augmented,omitempty"`
+	// Sum is S_c per component; Cross the packed upper triangle of Σvvᵀ
+	// within each estimator's block; Grad is ∂S/∂coef, term-major:
+	// Grad[j·nSlots + s] for term j and gradient slot s.
+	Sum   []Sum `json:"sum"`
+	Cross []Sum `json:"cross"`
+	Grad  []Sum `json:"grad"`
+
+	// Plain partial sums over at most flushRows rows, added into the
+	// compensated sums by flush; always empty between calls.
+	bSum, bCross, bGrad []float64
+	q                   []float64 // one row's gradient factors, per slot
+	pending             int
+}
+
+// flushRows bounds the rows summed in plain floating point before the
+// partial sums go into the compensated ones.
+const flushRows = 256
+
+// Components: each estimator's per-row values v, at a fixed offset.
+const (
+	cIPWATE  = 0  // ψ, 1
+	cIPWATT  = 2  // ψ, T
+	cIPWATC  = 4  // ψ, 1−T
+	cHajATE  = 6  // wTY, wT, w(1−T)Y, w(1−T)
+	cHajATT  = 10 //
+	cHajATC  = 14 //
+	cHajOver = 18 //
+	cAugATE  = 22 // ψ, 1
+	cAugATT  = 24 // ψ, T
+	cAugATC  = 26 // ψ, 1−T
+	cAugOver = 28 // hΔ, h, T(1−e)(Y−μ₁), T(1−e), (1−T)e(Y−μ₀), (1−T)e
+	nComp    = 34
+)
+
+// ratio is one term sign·S_num/S_den of an estimator; indices are offsets
+// within the block.
+type ratio struct {
+	sign     float64
+	num, den int
+}
+
+type block struct {
+	estimand, estimator string
+	off, m              int
+	terms               []ratio
+	augmented           bool
+	cross               int // offset in Cross
+}
+
+var hajekTerms = []ratio{{1, 0, 1}, {-1, 2, 3}}
+
+// blocks lists the estimators; blocks()[k].cross is filled in by init-free
+// computation in blockTable.
+func blockTable() []block {
+	bs := []block{
+		{score.ATE, EstimatorIPW, cIPWATE, 2, []ratio{{1, 0, 1}}, false, 0},
+		{score.ATT, EstimatorIPW, cIPWATT, 2, []ratio{{1, 0, 1}}, false, 0},
+		{score.ATC, EstimatorIPW, cIPWATC, 2, []ratio{{1, 0, 1}}, false, 0},
+		{score.ATE, EstimatorHajek, cHajATE, 4, hajekTerms, false, 0},
+		{score.ATT, EstimatorHajek, cHajATT, 4, hajekTerms, false, 0},
+		{score.ATC, EstimatorHajek, cHajATC, 4, hajekTerms, false, 0},
+		{score.Overlap, EstimatorHajek, cHajOver, 4, hajekTerms, false, 0},
+		{score.ATE, EstimatorAIPW, cAugATE, 2, []ratio{{1, 0, 1}}, true, 0},
+		{score.ATT, EstimatorAIPW, cAugATT, 2, []ratio{{1, 0, 1}}, true, 0},
+		{score.ATC, EstimatorAIPW, cAugATC, 2, []ratio{{1, 0, 1}}, true, 0},
+		{score.Overlap, EstimatorAIPW, cAugOver, 6, []ratio{{1, 0, 1}, {1, 2, 3}, {-1, 4, 5}}, true, 0},
+	}
+	k := 0
+	for i := range bs {
+		bs[i].cross = k
+		k += bs[i].m * (bs[i].m + 1) / 2
+	}
+	return bs
+}
+
+// nCross is the total length of the packed cross sums.
+const nCross = 3*3 + 4*10 + 3*3 + 21
+
+// Gradient slots: which component's derivative in which coefficients. The
+// structurally zero ones (constant components, unit weights) are left out.
+const (
+	wrtE  = iota // propensity coefficients β
+	wrtM1        // treated outcome model γ₁
+	wrtM0        // control outcome model γ₀
+)
+
+type slot struct{ comp, wrt int }
+
+var slots = []slot{
+	{cIPWATE, wrtE}, {cIPWATT, wrtE}, {cIPWATC, wrtE},
+	{cHajATE, wrtE}, {cHajATE + 1, wrtE}, {cHajATE + 2, wrtE}, {cHajATE + 3, wrtE},
+	{cHajATT, wrtE}, {cHajATT + 1, wrtE}, {cHajATT + 2, wrtE}, {cHajATT + 3, wrtE},
+	{cHajATC, wrtE}, {cHajATC + 1, wrtE}, {cHajATC + 2, wrtE}, {cHajATC + 3, wrtE},
+	{cHajOver, wrtE}, {cHajOver + 1, wrtE}, {cHajOver + 2, wrtE}, {cHajOver + 3, wrtE},
+	{cAugATE, wrtE}, {cAugATT, wrtE}, {cAugATC, wrtE},
+	{cAugOver, wrtE}, {cAugOver + 1, wrtE}, {cAugOver + 2, wrtE}, {cAugOver + 3, wrtE}, {cAugOver + 4, wrtE}, {cAugOver + 5, wrtE},
+	{cAugATE, wrtM1}, {cAugATC, wrtM1}, {cAugOver, wrtM1}, {cAugOver + 2, wrtM1},
+	{cAugATE, wrtM0}, {cAugATT, wrtM0}, {cAugOver, wrtM0}, {cAugOver + 4, wrtM0},
+}
+
+// nSlots is len(slots).
+const nSlots = 36
+
+// NewEffects returns an empty accumulator.
+func NewEffects(cfg EffectsConfig) *Effects {
+	p := max(cfg.NTerms, 0)
+	return &Effects{
+		Config: cfg,
+		Layout: effectsLayout,
+		Sum:    make([]Sum, nComp),
+		Cross:  make([]Sum, nCross),
+		Grad:   make([]Sum, p*nSlots),
+	}
+}
+
+func (a *Effects) logisticOutcome() bool {
+	return a.Config.OutcomeKind == "binary" || a.Config.OutcomeKind == fit.FamilyBinomial
+}
+
+func (a *Effects) scratch() {
+	if len(a.bSum) != nComp {
+		a.bSum = make([]float64, nComp)
+		a.bCross = make([]float64, nCross)
+		a.q = make([]float64, nSlots)
+	}
+	if len(a.bGrad) != len(a.Grad) {
+		a.bGrad = make([]float64, len(a.Grad))
+	}
+}
+
+// flush adds the plain partial sums into the compensated ones and clears
+// them.
+func (a *Effects) flush() {
+	for c, v := range a.bSum {
+		a.Sum[c].Add(v)
+		a.bSum[c] = 0
+	}
+	for c, v := range a.bCross {
+		a.Cross[c].Add(v)
+		a.bCross[c] = 0
+	}
+	for c, v := range a.bGrad {
+		a.Grad[c].Add(v)
+		a.bGrad[c] = 0
+	}
+	a.pending = 0
+}
+
+// Add folds in one scored batch (see the type's doc for the rows used). It
+// does not allocate after the first call.
+func (a *Effects) Add(b *fit.Batch, s *score.Scores) {
+	if a == nil || b == nil || s == nil || b.Y == nil {
+		return
+	}
+	n := min(b.N, len(b.T), len(b.Y), len(s.E), len(s.W), len(s.InSupport))
+	if b.YValid != nil {
+		n = min(n, len(b.YValid))
+	}
+	a.scratch()
+	p := a.Config.NTerms
+	grad := p > 0 && len(a.Grad) == p*nSlots && len(b.X) == p-1
+	if grad {
+		for _, x := range b.X {
+			if len(x) < n {
+				grad = false
+			}
+		}
+	}
+	if p > 0 && !grad {
+		a.NoGradient = true
+	}
+	aug := a.Config.HasOutcome
+	if aug && (len(s.Mu0) < n || len(s.Mu1) < n) {
+		a.NoAugmented = true
+		aug = false
+	}
+	pol := a.Config.Policy
+	clipLo, clipHi := pol.Clip, 1-pol.Clip
+	clip := pol.Clip > 0
+	trunc := pol.Cap > 0
+	run := pol.Estimand
+	logit := a.logisticOutcome()
+
+	var v, dE, dM1, dM0 [nComp]float64
+	q := a.q
+	bs, bc := a.bSum, a.bCross
+	for i := 0; i < n; i++ {
+		ti := b.T[i]
+		if ti != 0 && ti != 1 {
+			a.NullTreatment++
+			continue
+		}
+		if b.YValid != nil && !b.YValid[i] {
+			a.InvalidOutcome++
+			continue
+		}
+		if !s.InSupport[i] {
+			a.Trimmed++
+			continue
+		}
+		e, y, wr := s.E[i], b.Y[i], s.W[i]
+		var m0, m1 float64
+		if aug {
+			m0, m1 = s.Mu0[i], s.Mu1[i]
+		}
+		if !(e > 0 && e < 1) || !finite(y) || !finite(wr) || !finite(m0) || !finite(m1) {
+			a.Degenerate++
+			continue
+		}
+		a.Rows++
+
+		tt := float64(ti)
+		u := 1 - tt
+		sg := tt - u // +1 treated, −1 control
+		ie, ic := 1/e, 1/(1-e)
+		// The row's arm weight and its derivative in e, per estimand.
+		var wATE, dATE, wATT, dATT, wATC, dATC, wOv, dOv float64
+		if ti == 1 {
+			wATE, dATE = ie, -ie*ie
+			wATT, dATT = 1, 0
+			wATC, dATC = (1-e)*ie, -ie*ie
+			wOv, dOv = 1-e, -1
+		} else {
+			wATE, dATE = ic, ic*ic
+			wATT, dATT = e*ic, ic*ic
+			wATC, dATC = 1, 0
+			wOv, dOv = e, 1
+		}
+
+		// Horvitz–Thompson: ψ = sign·Y·w.
+		v[cIPWATE], v[cIPWATE+1], dE[cIPWATE] = sg*y*wATE, 1, sg*y*dATE
+		v[cIPWATT], v[cIPWATT+1], dE[cIPWATT] = sg*y*wATT, tt, sg*y*dATT
+		v[cIPWATC], v[cIPWATC+1], dE[cIPWATC] = sg*y*wATC, u, sg*y*dATC
+
+		// Hájek, with the written weight for the run's estimand.
+		truncated := trunc && wr >= pol.Cap
+		hajekRow(&v, &dE, cHajATE, run == score.ATE, wATE, dATE, wr, truncated, tt, u, y)
+		hajekRow(&v, &dE, cHajATT, run == score.ATT, wATT, dATT, wr, truncated, tt, u, y)
+		hajekRow(&v, &dE, cHajATC, run == score.ATC, wATC, dATC, wr, truncated, tt, u, y)
+		hajekRow(&v, &dE, cHajOver, run == score.Overlap, wOv, dOv, wr, truncated, tt, u, y)
+
+		if aug {
+			r1, r0 := y-m1, y-m0
+			v[cAugATE] = m1 - m0 + tt*r1*ie - u*r0*ic
+			v[cAugATE+1] = 1
+			dE[cAugATE] = -tt*r1*ie*ie - u*r0*ic*ic
+			dM1[cAugATE] = 1 - tt*ie
+			dM0[cAugATE] = -1 + u*ic
+
+			v[cAugATT], v[cAugATT+1] = sg*r0*wATT, tt
+			dE[cAugATT] = sg * r0 * dATT
+			dM0[cAugATT] = -sg * wATT
+
+			v[cAugATC], v[cAugATC+1] = sg*r1*wATC, u
+			dE[cAugATC] = sg * r1 * dATC
+			dM1[cAugATC] = -sg * wATC
+
+			h, dh, d := e*(1-e), 1-2*e, m1-m0
+			o := cAugOver
+			v[o], dE[o], dM1[o], dM0[o] = h*d, dh*d, h, -h
+			v[o+1], dE[o+1] = h, dh
+			v[o+2], dE[o+2], dM1[o+2] = tt*(1-e)*r1, -tt*r1, -tt*(1-e)
+			v[o+3], dE[o+3] = tt*(1-e), -tt
+			v[o+4], dE[o+4], dM0[o+4] = u*e*r0, u*r0, -u*e
+			v[o+5], dE[o+5] = u*e, u
+		}
+
+		last := nComp
+		if !aug {
+			last = cAugATE
+		}
+		for c := 0; c < last; c++ {
+			bs[c] += v[c]
+		}
+		k := 0
+		for _, blk := range effectBlocks {
+			if blk.augmented && !aug {
+				break
+			}
+			for r := 0; r < blk.m; r++ {
+				vr := v[blk.off+r]
+				for c := r; c < blk.m; c++ {
+					bc[k] += vr * v[blk.off+c]
+					k++
+				}
+			}
+		}
+
+		if grad {
+			ge := e * (1 - e)
+			if clip && (e <= clipLo || e >= clipHi) {
+				ge = 0
+			}
+			g1, g0 := 1.0, 1.0
+			if logit {
+				g1, g0 = m1*(1-m1), m0*(1-m0)
+			}
+			ns := nSlots
+			if !aug {
+				ns = nAugFree
+			}
+			for si := 0; si < ns; si++ {
+				sl := slots[si]
+				switch sl.wrt {
+				case wrtE:
+					q[si] = ge * dE[sl.comp]
+				case wrtM1:
+					q[si] = g1 * dM1[sl.comp]
+				default:
+					q[si] = g0 * dM0[sl.comp]
+				}
+			}
+			qs := q[:ns]
+			floats.Add(a.bGrad[:ns], qs)
+			for j, x := range b.X {
+				off := (j + 1) * nSlots
+				floats.AddScaled(a.bGrad[off:off+ns], x[i], qs)
+			}
+		}
+		a.pending++
+		if a.pending == flushRows {
+			a.flush()
+		}
+	}
+	a.flush()
+}
+
+// hajekRow sets one Hájek block's components wTY, wT, w(1−T)Y, w(1−T) and
+// their derivatives in e. For the run's own estimand w is the written weight
+// wr: stabilization scales the derivative, truncation zeroes it.
+func hajekRow(v, dE *[nComp]float64, off int, isRun bool, w, dw, wr float64, truncated bool, tt, u, y float64) {
+	if isRun {
+		if truncated {
+			dw = 0
+		} else {
+			dw *= wr / w
+		}
+		w = wr
+	}
+	v[off], v[off+1], v[off+2], v[off+3] = w*tt*y, w*tt, w*u*y, w*u
+	dE[off], dE[off+1], dE[off+2], dE[off+3] = dw*tt*y, dw*tt, dw*u*y, dw*u
+}
+
+// nAugFree is the number of leading slots that do not need outcome models.
+const nAugFree = 19
+
+// effectBlocks is the estimator table, read-only.
+var effectBlocks = blockTable()
+
+func finite(x float64) bool { return !math.IsNaN(x) && !math.IsInf(x, 0) }
+
+// Merge adds o's sums into a. Both must come from the same configuration.
+func (a *Effects) Merge(o *Effects) error {
+	if o == nil {
+		return nil
+	}
+	if o.Layout != a.Layout || len(o.Sum) != len(a.Sum) || len(o.Cross) != len(a.Cross) || len(o.Grad) != len(a.Grad) {
+		return fmt.Errorf("effects: cannot merge states of different layouts (%d terms, layout %d, and %d terms, layout %d)",
+			a.Config.NTerms, a.Layout, o.Config.NTerms, o.Layout)
+	}
+	if o.Config != a.Config {
+		return fmt.Errorf("effects: cannot merge states of different runs (%+v and %+v)", a.Config, o.Config)
+	}
+	a.Rows += o.Rows
+	a.NullTreatment += o.NullTreatment
+	a.InvalidOutcome += o.InvalidOutcome
+	a.Trimmed += o.Trimmed
+	a.Degenerate += o.Degenerate
+	a.NoGradient = a.NoGradient || o.NoGradient
+	a.NoAugmented = a.NoAugmented || o.NoAugmented
+	for c := range a.Sum {
+		a.Sum[c].Merge(o.Sum[c])
+	}
+	for c := range a.Cross {
+		a.Cross[c].Merge(o.Cross[c])
+	}
+	for c := range a.Grad {
+		a.Grad[c].Merge(o.Grad[c])
+	}
+	return nil
+}
+
+// Estimate is one effect estimate. Non-finite values (an empty arm, a missing
+// covariance) are written as JSON null.
+type Estimate struct {
+	Estimate               float64 `json:"estimate"`
+	SE                     float64 `json:"se"`
+	SEWithModelUncertainty float64 `json:"se_with_model_uncertainty"`
+	CILow                  float64 `json:"ci_low"`
+	CIHigh                 float64 `json:"ci_high"`
+}
+
+// estimateJSON mirrors Estimate with nullable numbers.
+type estimateJSON struct {
+	Estimate               *float64 `json:"estimate"`
+	SE                     *float64 `json:"se"`
+	SEWithModelUncertainty *float64 `json:"se_with_model_uncertainty"`
+	CILow                  *float64 `json:"ci_low"`
+	CIHigh                 *float64 `json:"ci_high"`
+}
+
+func nullable(x float64) *float64 {
+	if !finite(x) {
+		return nil
+	}
+	return &x
+}
+
+func unnull(p *float64) float64 {
+	if p == nil {
+		return math.NaN()
+	}
+	return *p
+}
+
+// MarshalJSON writes non-finite numbers as null (encoding/json refuses them).
+func (e Estimate) MarshalJSON() ([]byte, error) {
+	return json.Marshal(estimateJSON{nullable(e.Estimate), nullable(e.SE), nullable(e.SEWithModelUncertainty), nullable(e.CILow), nullable(e.CIHigh)})
+}
+
+// UnmarshalJSON reads null as NaN.
+func (e *Estimate) UnmarshalJSON(b []byte) error {
+	var j estimateJSON
+	if err := json.Unmarshal(b, &j); err != nil {
+		return err
+	}
+	*e = Estimate{unnull(j.Estimate), unnull(j.SE), unnull(j.SEWithModelUncertainty), unnull(j.CILow), unnull(j.CIHigh)}
+	return nil
+}
+
+// Estimates returns estimand → estimator → Estimate for every estimand and
+// the estimators defined for it: no "ipw" for overlap, "aipw" only with
+// outcome models. m supplies the coefficient covariances of the second
+// standard error; with m nil, or a covariance missing or of the wrong size,
+// SEWithModelUncertainty is NaN.
+func (a *Effects) Estimates(m *fit.Model) map[string]map[string]Estimate {
+	out := make(map[string]map[string]Estimate, len(score.Estimands))
+	for _, est := range score.Estimands {
+		out[est] = make(map[string]Estimate, 3)
+	}
+	p := a.Config.NTerms
+	var covB, cov1, cov0 [][]float64
+	if m != nil {
+		covB = m.Propensity.Cov
+		if m.Outcome != nil {
+			cov1, cov0 = m.Outcome.Treated.Cov, m.Outcome.Control.Cov
+		}
+	}
+	n := float64(a.Rows)
+	var S, coef [6]float64
+	g := make([]float64, 3*max(p, 0))
+	for _, blk := range effectBlocks {
+		if blk.augmented && !a.Config.HasOutcome {
+			continue
+		}
+		for c := 0; c < blk.m; c++ {
+			S[c] = a.Sum[blk.off+c].Value()
+			coef[c] = 0
+		}
+		tau := 0.0
+		for _, r := range blk.terms {
+			num, den := S[r.num], S[r.den]
+			tau += r.sign * num / den
+			coef[r.num] += r.sign / den
+			coef[r.den] -= r.sign * num / (den * den)
+		}
+		// Var₁ = aᵀ(Σvvᵀ)a − (aᵀS)²/n.
+		quad, lin, k := 0.0, 0.0, blk.cross
+		for r := 0; r < blk.m; r++ {
+			lin += coef[r] * S[r]
+			for c := r; c < blk.m; c++ {
+				x := a.Cross[k].Value()
+				k++
+				if c == r {
+					quad += coef[r] * coef[r] * x
+				} else {
+					quad += 2 * coef[r] * coef[c] * x
+				}
+			}
+		}
+		var1 := math.Max(quad-lin*lin/n, 0)
+		if blk.augmented && a.NoAugmented {
+			tau, var1 = math.NaN(), math.NaN()
+		}
+
+		// g = Σ_c a_c ∂S_c/∂coef, per model.
+		clear(g)
+		for si, sl := range slots {
+			c := sl.comp - blk.off
+			if c < 0 || c >= blk.m {
+				continue
+			}
+			for j := 0; j < p; j++ {
+				g[sl.wrt*p+j] += coef[c] * a.Grad[j*nSlots+si].Value()
+			}
+		}
+		var2 := var1 + quadForm(covB, g[:p])
+		if blk.augmented {
+			var2 += quadForm(cov1, g[p:2*p]) + quadForm(cov0, g[2*p:])
+		}
+		if a.NoGradient || p <= 0 {
+			var2 = math.NaN()
+		}
+		se := math.Sqrt(var1)
+		out[blk.estimand][blk.estimator] = Estimate{
+			Estimate:               tau,
+			SE:                     se,
+			SEWithModelUncertainty: math.Sqrt(var2),
+			CILow:                  tau - z975*se,
+			CIHigh:                 tau + z975*se,
+		}
+	}
+	return out
+}
+
+// quadForm is gᵀΣg, NaN when Σ is missing or not len(g)×len(g).
+func quadForm(cov [][]float64, g []float64) float64 {
+	if len(cov) != len(g) || len(g) == 0 {
+		return math.NaN()
+	}
+	s := 0.0
+	for r, row := range cov {
+		if len(row) != len(g) {
+			return math.NaN()
+		}
+		s += g[r] * floats.Dot(row, g)
+	}
+	return s
+}
