@@ -173,3 +173,92 @@ func TestStageErrors(t *testing.T) {
 		t.Errorf("error %v, want b.parquet row group 3 row 101", err)
 	}
 }
+
+// TestStageWithEncoder runs the real fit.Encoder through the stage: a
+// numeric and a categorical covariate, a null treatment and a trailing
+// partition column that Keep drops.
+func TestStageWithEncoder(t *testing.T) {
+	mem := memory.NewCheckedAllocator(memory.NewGoAllocator())
+	defer mem.AssertSize(t, 0)
+	enc := fit.Encoding{
+		Treatment: fit.Treatment{Column: "t", Type: "int64", TreatedValue: "1", ControlValue: "0"},
+		Columns: []fit.ColumnSpec{
+			{Name: "x", Type: "float64", Kind: fit.KindNumeric},
+			{Name: "g", Type: "utf8", Kind: fit.KindCategorical, Reference: "a", Levels: []string{"b", "c"}},
+		},
+		Missing: fit.MissingError,
+	}
+	coef := []float64{-0.2, 0.7, 0.5, -1.0}
+	m := &fit.Model{
+		Encoding:   enc,
+		Propensity: fit.GLM{Family: fit.FamilyBinomial, Terms: enc.Terms(), Coef: coef},
+		Reference:  fit.Reference{ShareTreated: 0.4},
+	}
+	schema := arrow.NewSchema([]arrow.Field{
+		{Name: "x", Type: arrow.PrimitiveTypes.Float64},
+		{Name: "g", Type: arrow.BinaryTypes.String},
+		{Name: "t", Type: arrow.PrimitiveTypes.Int64, Nullable: true},
+		{Name: "dt", Type: arrow.BinaryTypes.String},
+	}, nil)
+	x := []float64{0.1, -1.5, 2.2, 0, 0.8}
+	g := []string{"a", "b", "c", "b", "a"}
+	tr := []int64{1, 0, 0, 1, 0}
+	tvalid := []bool{true, true, true, false, true}
+	b := array.NewRecordBuilder(mem, schema)
+	b.Field(0).(*array.Float64Builder).AppendValues(x, nil)
+	b.Field(1).(*array.StringBuilder).AppendValues(g, nil)
+	b.Field(2).(*array.Int64Builder).AppendValues(tr, tvalid)
+	for range x {
+		b.Field(3).(*array.StringBuilder).Append("2026-06-01")
+	}
+	rec := b.NewRecordBatch()
+	b.Release()
+	defer rec.Release()
+
+	encoder, err := m.Encoding.Bind(schema, "in.parquet", false, fit.UnseenError)
+	if err != nil {
+		t.Fatal(err)
+	}
+	p := Policy{Estimand: ATT, Stabilize: true}
+	sc, err := New(m, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	c := DefaultColumns()
+	out, err := OutputSchema(arrow.NewSchema(schema.Fields()[:3], nil), c, MergeMetadata(schema.Metadata(), Metadata(m, p, c, "test")))
+	if err != nil {
+		t.Fatal(err)
+	}
+	st := NewStage(encoder, sc, StageOptions{Alloc: mem, Columns: c, OutputSchema: out, Keep: 3, WriteTable: true})
+	res, _, err := st.Apply(context.Background(), rec, pipeline.Location{File: "in.parquet", RowGroup: 0})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer res.Release()
+	if res.NumCols() != 6 || res.Schema().Field(3).Name != "propensity" {
+		t.Fatalf("output schema %v", res.Schema())
+	}
+	e := res.Column(3).(*array.Float64)
+	w := res.Column(4).(*array.Float64)
+	for i := range x {
+		lp := coef[0] + coef[1]*x[i]
+		switch g[i] {
+		case "b":
+			lp += coef[2]
+		case "c":
+			lp += coef[3]
+		}
+		ei := 1 / (1 + math.Exp(-lp))
+		// ATT, stabilized: treated 1·share; control e/(1−e)·(1−share).
+		wi := 0.4
+		if tr[i] == 0 {
+			wi = ei / (1 - ei) * 0.6
+		}
+		if !near(e.Value(i), ei, 1e-12) {
+			t.Errorf("row %d: e %v, want %v", i, e.Value(i), ei)
+		}
+		if w.IsValid(i) != tvalid[i] || (tvalid[i] && !near(w.Value(i), wi, 1e-12)) {
+			t.Errorf("row %d: w %v (valid %v), want %v (valid %v)", i, w.Value(i), w.IsValid(i), wi, tvalid[i])
+		}
+	}
+}
