@@ -91,8 +91,9 @@ func OutputSchema(in *arrow.Schema, c Columns, meta arrow.Metadata) (*arrow.Sche
 // same arrays, retained, not copied; keep < rec.NumCols() drops trailing
 // partition columns) followed by the columns built from sc with mem.
 // keep ≤ 0 or beyond rec's columns keeps them all. schema is the output
-// schema (OutputSchema of the kept input columns). The caller releases the
-// result; rec is unchanged.
+// schema (OutputSchema of the kept input columns); sc must hold rec's rows,
+// with Mu0 and Mu1 when c.Predictions (Stage checks both). The caller
+// releases the result; rec is unchanged.
 func Append(mem memory.Allocator, schema *arrow.Schema, rec arrow.RecordBatch, keep int, sc *Scores, c Columns) arrow.RecordBatch {
 	n := sc.N
 	if keep <= 0 || keep > int(rec.NumCols()) {

@@ -19,7 +19,8 @@ import (
 //     stably: 1/(1+exp(−lp)) for lp ≥ 0, exp(lp)/(1+exp(lp)) otherwise.
 //  2. Clip: with Clip = ε > 0, e is bounded to [ε, 1−ε] (counted in
 //     Clipped). Without clipping, e exactly 0 or 1 on a row with a treatment
-//     is an error naming file, row group and row, never an infinite weight.
+//     is an error naming file, row group and row, never an infinite weight;
+//     with trimming such a row is simply out of support (weight 0).
 //  3. Weight for the estimand (see Weight), from the clipped e.
 //  4. Stabilize: multiply by the fit sample's share of the row's arm,
 //     ShareTreated or 1−ShareTreated (Robins, Hernán & Brumback 2000).
@@ -201,7 +202,7 @@ func (s *Scorer) weigh(t []int8, loc pipeline.Location, out *Scores) error {
 				ei = hi
 				out.Clipped++
 			}
-		} else if (ei == 0 || ei == 1) && t[i] >= 0 {
+		} else if !trim && (ei == 0 || ei == 1) && t[i] >= 0 {
 			return &pipeline.Error{File: loc.File, RowGroup: loc.RowGroup, Row: loc.Row + int64(i),
 				Err: fmt.Errorf("propensity is exactly %v (linear predictor %.6g), so the weight would be infinite; bound propensities with --clip (for example --clip 1e-6)", ei, lp)}
 		}

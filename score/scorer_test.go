@@ -306,6 +306,14 @@ func TestExtremePropensity(t *testing.T) {
 	if err := s.Score(batchOf([]float64{40, -800}, []int8{-1, -1}), loc, &out); err != nil {
 		t.Errorf("null-treatment rows: %v", err)
 	}
+	// Trimming alone takes such rows out of support: weight 0, no error.
+	s, _ = New(oneTerm(0.5), Policy{Estimand: ATE, Trim: 0.01})
+	if err := s.Score(batchOf([]float64{40, -800, 0}, []int8{0, 1, 1}), loc, &out); err != nil {
+		t.Fatalf("trimmed rows: %v", err)
+	}
+	if out.W[0] != 0 || out.W[1] != 0 || out.InSupport[0] || out.InSupport[1] || out.Trimmed != 2 || out.W[2] != 2 {
+		t.Errorf("trimmed extreme rows: w %v in %v trimmed %d", out.W, out.InSupport, out.Trimmed)
+	}
 }
 
 func TestNewErrors(t *testing.T) {
