@@ -219,8 +219,9 @@ func (x *ipcStream) close() error {
 
 func openArrowStream(path string, p *projection, opt SourceOptions) (Source, error) {
 	var (
-		rd io.Reader
-		c  io.Closer
+		rd   io.Reader
+		c    io.Closer
+		opts = []ipc.Option{ipc.WithAllocator(opt.alloc())}
 	)
 	if path == Stdin {
 		rd = opt.stdin()
@@ -230,10 +231,15 @@ func openArrowStream(path string, p *projection, opt SourceOptions) (Source, err
 			return nil, At(path, err)
 		}
 		rd, c = f, f
+		// No message can be longer than the file: this keeps a damaged
+		// length from allocating gigabytes before the read fails.
+		if info, err := f.Stat(); err == nil {
+			opts = append(opts, ipc.WithMetadataSizeLimit(info.Size()), ipc.WithBodySizeLimit(info.Size()))
+		}
 	}
 	var r *ipc.Reader
 	err := guard(path, func() (err error) {
-		r, err = ipc.NewReader(rd, ipc.WithAllocator(opt.alloc()))
+		r, err = ipc.NewReader(rd, opts...)
 		return err
 	})
 	if err != nil {
