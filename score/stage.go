@@ -48,8 +48,13 @@ type Stage struct {
 
 var _ pipeline.Transform = (*Stage)(nil)
 
-// NewStage returns a Stage encoding with enc and scoring with sc.
+// NewStage returns a Stage encoding with enc and scoring with sc. An
+// encoder with scratch buffers (*fit.Encoder) is cloned, so Stages made
+// from one encoder can run on different workers.
 func NewStage(enc BatchEncoder, sc *Scorer, opt StageOptions) *Stage {
+	if c, ok := enc.(interface{ Clone() *fit.Encoder }); ok {
+		enc = c.Clone()
+	}
 	if opt.Alloc == nil {
 		opt.Alloc = memory.DefaultAllocator
 	}

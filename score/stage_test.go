@@ -5,6 +5,7 @@ import (
 	"errors"
 	"math"
 	"strings"
+	"sync"
 	"testing"
 
 	"github.com/apache/arrow-go/v18/arrow"
@@ -260,5 +261,32 @@ func TestStageWithEncoder(t *testing.T) {
 		if w.IsValid(i) != tvalid[i] || (tvalid[i] && !near(w.Value(i), wi, 1e-12)) {
 			t.Errorf("row %d: w %v (valid %v), want %v (valid %v)", i, w.Value(i), w.IsValid(i), wi, tvalid[i])
 		}
+	}
+
+	// Stages made from one encoder run side by side (go test -race).
+	var wg sync.WaitGroup
+	errs := make(chan error, 2)
+	for range 2 {
+		st := NewStage(encoder, sc, StageOptions{Alloc: mem, Columns: c, OutputSchema: out, Keep: 3, WriteTable: true})
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for range 20 {
+				r, _, err := st.Apply(context.Background(), rec, pipeline.Location{File: "in.parquet"})
+				if err != nil {
+					errs <- err
+					return
+				}
+				if !array.Equal(r.Column(4), res.Column(4)) {
+					errs <- errors.New("concurrent stage wrote different weights")
+				}
+				r.Release()
+			}
+		}()
+	}
+	wg.Wait()
+	close(errs)
+	for err := range errs {
+		t.Error(err)
 	}
 }
