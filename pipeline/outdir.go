@@ -1,0 +1,63 @@
+package pipeline
+
+import (
+	"errors"
+	"fmt"
+	"os"
+	"path/filepath"
+	"strings"
+)
+
+// SuccessMarker is the empty file OutDir.Success writes last, so a consumer
+// can tell a complete output directory from one a failed run left behind.
+const SuccessMarker = "_SUCCESS"
+
+// OutDir manages a directory output: one output file per input file at its
+// relative path (partition folders kept), each committed atomically by its
+// own sink. A stale _SUCCESS from an earlier run is removed when the OutDir
+// is created, before any file is written; Success writes a new one only after
+// every file was committed.
+type OutDir struct {
+	dir string
+}
+
+// NewOutDir creates dir if needed and removes a stale success marker.
+func NewOutDir(dir string) (*OutDir, error) {
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		return nil, At(dir, fmt.Errorf("create output directory: %w", err))
+	}
+	marker := filepath.Join(dir, SuccessMarker)
+	if err := os.Remove(marker); err != nil && !errors.Is(err, os.ErrNotExist) {
+		return nil, At(marker, fmt.Errorf("remove stale success marker: %w", err))
+	}
+	if err := syncDir(dir); err != nil {
+		return nil, err
+	}
+	return &OutDir{dir: dir}, nil
+}
+
+// Dir returns the output directory.
+func (d *OutDir) Dir() string { return d.dir }
+
+// Path returns the target for an input's relative path rel with its
+// extension replaced by ext (".parquet", say), creating the partition
+// folders it needs. A rel that would leave the directory is kept inside it.
+func (d *OutDir) Path(rel string, ext string) string {
+	rel = filepath.Clean("/" + filepath.FromSlash(rel))[1:]
+	if e := filepath.Ext(rel); e != "" {
+		rel = strings.TrimSuffix(rel, e)
+	}
+	p := filepath.Join(d.dir, rel+ext)
+	os.MkdirAll(filepath.Dir(p), 0o755) // an error resurfaces when the file is created
+	return p
+}
+
+// Success writes the empty success marker, atomically. Call it only after
+// every output file's sink closed without error.
+func (d *OutDir) Success() error {
+	af, err := CreateAtomic(filepath.Join(d.dir, SuccessMarker))
+	if err != nil {
+		return err
+	}
+	return af.Commit()
+}

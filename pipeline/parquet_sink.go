@@ -1,0 +1,421 @@
+package pipeline
+
+import (
+	"context"
+	"encoding/base64"
+	"errors"
+	"fmt"
+	"io"
+	"runtime"
+	"strings"
+	"sync"
+	"sync/atomic"
+
+	"github.com/apache/arrow-go/v18/arrow"
+	"github.com/apache/arrow-go/v18/arrow/flight"
+	"github.com/apache/arrow-go/v18/arrow/memory"
+	"github.com/apache/arrow-go/v18/parquet"
+	"github.com/apache/arrow-go/v18/parquet/compress"
+	"github.com/apache/arrow-go/v18/parquet/file"
+	"github.com/apache/arrow-go/v18/parquet/metadata"
+	"github.com/apache/arrow-go/v18/parquet/pqarrow"
+)
+
+// DefaultRowGroupRows is the row group size when ParquetSinkOptions leaves
+// it zero.
+const DefaultRowGroupRows = 131072
+
+// ParquetSinkOptions configure a Parquet sink. The zero value writes snappy
+// row groups of DefaultRowGroupRows rows.
+type ParquetSinkOptions struct {
+	Compression  string         // "snappy" (default), "zstd", "gzip", "none"
+	RowGroupRows int64          // 0 = DefaultRowGroupRows; batches are split/merged to fill row groups
+	Metadata     arrow.Metadata // key-value metadata for the footer (the caller merges input's and heft's own)
+	CreatedBy    string         // e.g. "heft 0.1.0"; no timestamps anywhere, so the bytes are a function of the input
+	Alloc        memory.Allocator
+
+	// Workers is how many columns of a row group are encoded at once;
+	// 0 = runtime.GOMAXPROCS(0), 1 = one after another. The bytes do not
+	// depend on it.
+	Workers int
+	// DataPageSize is the target size of a data page before compression;
+	// 0 = 1 MiB.
+	DataPageSize int64
+	// Dictionary chooses the columns that are dictionary encoded: "" or
+	// "strings" for string, binary and dictionary columns only, "all", or
+	// "none". Dictionary encoding of continuous numbers costs hashing time
+	// and falls back to plain encoding anyway.
+	Dictionary string
+	// NoStatistics leaves out the per-column min/max/null-count statistics.
+	NoStatistics bool
+	// NoArrowSchema leaves out the serialized Arrow schema ("ARROW:schema"),
+	// which lets Arrow readers restore types Parquet cannot express.
+	NoArrowSchema bool
+}
+
+// NewParquetSink writes a Parquet file that appears at target only when
+// Close returns nil (see CreateAtomic).
+func NewParquetSink(target string, schema *arrow.Schema, opt ParquetSinkOptions) (Committer, error) {
+	af, err := CreateAtomic(target)
+	if err != nil {
+		return nil, err
+	}
+	s, err := newParquetSink(af, target, schema, opt)
+	if err != nil {
+		af.Abort()
+		return nil, err
+	}
+	s.atomic = af
+	return s, nil
+}
+
+// NewParquetWriter writes a Parquet file to w. Close flushes the footer but
+// does not close w; Abort is a no-op.
+func NewParquetWriter(w io.Writer, schema *arrow.Schema, opt ParquetSinkOptions) (Committer, error) {
+	return newParquetSink(noClose{w}, "", schema, opt)
+}
+
+// noClose hides w's Close from the Parquet writer, which closes its sink.
+type noClose struct{ io.Writer }
+
+type parquetSink struct {
+	name     string // target, for errors
+	atomic   *AtomicFile
+	schema   *arrow.Schema
+	fw       *file.Writer
+	manifest *pqarrow.SchemaManifest
+	arrProps pqarrow.ArrowWriterProperties
+	rgw      file.BufferedRowGroupWriter
+	rgRows   int64 // rows in rgw so far
+	maxRows  int64
+	workers  int
+	ones     []int16 // definition levels of an all-valid column
+	scratch  [][]int16
+	ctxs     []context.Context // one Arrow write context per worker
+	err      error             // sticky
+	closed   bool
+}
+
+func newParquetSink(w io.Writer, name string, schema *arrow.Schema, opt ParquetSinkOptions) (*parquetSink, error) {
+	fail := func(err error) (*parquetSink, error) { return nil, At(name, err) }
+	for _, f := range schema.Fields() {
+		if !flatType(f.Type) {
+			return fail(fmt.Errorf("column %q: nested type %s cannot be written; heft writes flat tables", f.Name, f.Type))
+		}
+	}
+	codec, err := parseCompression(opt.Compression)
+	if err != nil {
+		return fail(err)
+	}
+	mem := opt.Alloc
+	if mem == nil {
+		mem = memory.DefaultAllocator
+	}
+	rows := opt.RowGroupRows
+	if rows <= 0 {
+		rows = DefaultRowGroupRows
+	}
+	props := []parquet.WriterProperty{
+		parquet.WithAllocator(mem),
+		parquet.WithCompression(codec),
+		parquet.WithMaxRowGroupLength(rows),
+		parquet.WithStats(!opt.NoStatistics),
+	}
+	if opt.CreatedBy != "" {
+		props = append(props, parquet.WithCreatedBy(opt.CreatedBy))
+	}
+	if opt.DataPageSize > 0 {
+		props = append(props, parquet.WithDataPageSize(opt.DataPageSize))
+	}
+	switch opt.Dictionary {
+	case "all":
+		props = append(props, parquet.WithDictionaryDefault(true))
+	case "none":
+		props = append(props, parquet.WithDictionaryDefault(false))
+	case "", "strings":
+		props = append(props, parquet.WithDictionaryDefault(false))
+		for _, f := range schema.Fields() {
+			switch f.Type.ID() {
+			case arrow.STRING, arrow.LARGE_STRING, arrow.BINARY, arrow.LARGE_BINARY, arrow.DICTIONARY:
+				props = append(props, parquet.WithDictionaryFor(f.Name, true))
+			}
+		}
+	default:
+		return fail(fmt.Errorf("unknown dictionary choice %q (want strings, all or none)", opt.Dictionary))
+	}
+	wprops := parquet.NewWriterProperties(props...)
+	var aopts []pqarrow.WriterOption
+	aopts = append(aopts, pqarrow.WithAllocator(mem))
+	arrProps := pqarrow.NewArrowWriterProperties(aopts...)
+
+	pqSchema, err := pqarrow.ToParquet(schema, wprops, arrProps)
+	if err != nil {
+		return fail(fmt.Errorf("convert schema: %w", err))
+	}
+	manifest, err := pqarrow.NewSchemaManifest(pqSchema, nil, &pqarrow.ArrowReadProperties{})
+	if err != nil {
+		return fail(fmt.Errorf("convert schema: %w", err))
+	}
+	kv := make(metadata.KeyValueMetadata, 0, opt.Metadata.Len()+1)
+	for i, k := range opt.Metadata.Keys() {
+		kv.Append(k, opt.Metadata.Values()[i])
+	}
+	if !opt.NoArrowSchema {
+		// The footer already holds the metadata; keep it out of the copy.
+		bare := arrow.NewSchema(schema.Fields(), nil)
+		kv.Append("ARROW:schema", base64.StdEncoding.EncodeToString(flight.SerializeSchema(bare, mem)))
+	}
+	fw, err := file.NewParquetWriterWithError(w, pqSchema.Root(), file.WithWriterProps(wprops), file.WithWriteMetadata(kv))
+	if err != nil {
+		return fail(fmt.Errorf("start file: %w", err))
+	}
+	workers := opt.Workers
+	if workers <= 0 {
+		workers = runtime.GOMAXPROCS(0)
+	}
+	if workers > len(schema.Fields()) {
+		workers = max(1, len(schema.Fields()))
+	}
+	s := &parquetSink{
+		name:     name,
+		schema:   schema,
+		fw:       fw,
+		manifest: manifest,
+		arrProps: arrProps,
+		maxRows:  rows,
+		workers:  workers,
+		scratch:  make([][]int16, workers),
+		ctxs:     make([]context.Context, workers),
+	}
+	for i := range s.ctxs {
+		p := arrProps
+		s.ctxs[i] = pqarrow.NewArrowWriteContext(context.Background(), &p)
+	}
+	return s, nil
+}
+
+// flatType reports whether t is stored as a single Parquet leaf column.
+func flatType(t arrow.DataType) bool {
+	if ext, ok := t.(arrow.ExtensionType); ok {
+		t = ext.StorageType()
+	}
+	if d, ok := t.(*arrow.DictionaryType); ok {
+		t = d.ValueType
+	}
+	_, nested := t.(arrow.NestedType)
+	return !nested
+}
+
+func parseCompression(name string) (compress.Compression, error) {
+	switch strings.ToLower(name) {
+	case "", "snappy":
+		return compress.Codecs.Snappy, nil
+	case "zstd":
+		return compress.Codecs.Zstd, nil
+	case "gzip":
+		return compress.Codecs.Gzip, nil
+	case "none", "uncompressed":
+		return compress.Codecs.Uncompressed, nil
+	}
+	return 0, fmt.Errorf("unknown compression %q (want snappy, zstd, gzip or none)", name)
+}
+
+// Write appends rec, splitting it at row group boundaries.
+func (s *parquetSink) Write(ctx context.Context, rec arrow.RecordBatch) error {
+	if s.err != nil {
+		return s.err
+	}
+	if s.closed {
+		return At(s.name, errors.New("write after close"))
+	}
+	if !rec.Schema().Equal(s.schema) {
+		return s.fail(-1, "", fmt.Errorf("batch schema %s does not match the output schema %s", rec.Schema(), s.schema))
+	}
+	n := rec.NumRows()
+	for off := int64(0); off < n; {
+		if err := ctx.Err(); err != nil {
+			return err
+		}
+		if s.rgw == nil {
+			rgw, err := s.fw.AppendBufferedRowGroupChecked()
+			if err != nil {
+				return s.fail(s.fw.NumRowGroups(), "", err)
+			}
+			s.rgw, s.rgRows = rgw, 0
+		}
+		k := min(n-off, s.maxRows-s.rgRows)
+		part := rec
+		if k != n {
+			part = rec.NewSlice(off, off+k)
+		}
+		err := s.writeColumns(part)
+		if k != n {
+			part.Release()
+		}
+		if err != nil {
+			return err
+		}
+		s.rgRows += k
+		off += k
+		if s.rgRows == s.maxRows {
+			if err := s.closeRowGroup(); err != nil {
+				return err
+			}
+		}
+	}
+	return nil
+}
+
+// writeColumns encodes the columns of rec into the current row group, up to
+// s.workers at once; each column writer is used by one goroutine only.
+func (s *parquetSink) writeColumns(rec arrow.RecordBatch) error {
+	ncol := int(rec.NumCols())
+	if n := int(rec.NumRows()); len(s.ones) < n {
+		s.ones = make([]int16, n)
+		for j := range s.ones {
+			s.ones[j] = 1
+		}
+	}
+	errs := make([]error, ncol)
+	var next atomic.Int64
+	work := func(w int) {
+		for {
+			i := int(next.Add(1)) - 1
+			if i >= ncol {
+				return
+			}
+			errs[i] = s.writeColumn(w, i, rec.Column(i))
+		}
+	}
+	if s.workers <= 1 || ncol <= 1 {
+		work(0)
+	} else {
+		var wg sync.WaitGroup
+		for w := 1; w < s.workers; w++ {
+			wg.Add(1)
+			go func() { defer wg.Done(); work(w) }()
+		}
+		work(0)
+		wg.Wait()
+	}
+	for i, err := range errs {
+		if err != nil {
+			return s.fail(s.fw.NumRowGroups()-1, s.schema.Field(i).Name, err)
+		}
+	}
+	return nil
+}
+
+func (s *parquetSink) writeColumn(w, i int, arr arrow.Array) (err error) {
+	defer func() {
+		if p := recover(); p != nil {
+			err = fmt.Errorf("internal error in Parquet encoder: %v", p)
+		}
+	}()
+	cw, err := s.rgw.Column(i)
+	if err != nil {
+		return err
+	}
+	var def []int16
+	if cw.Descr().MaxDefinitionLevel() > 0 {
+		def = s.defLevels(w, arr)
+	}
+	return pqarrow.WriteArrowToColumn(s.ctxs[w], cw, arr, def, nil, s.schema.Field(i).Nullable)
+}
+
+// defLevels returns the definition levels of a flat optional column: 1 for
+// a value, 0 for a null.
+func (s *parquetSink) defLevels(w int, arr arrow.Array) []int16 {
+	n := arr.Len()
+	if arr.NullN() == 0 {
+		return s.ones[:n] // read-only, shared by the workers
+	}
+	buf := s.scratch[w]
+	if cap(buf) < n {
+		buf = make([]int16, n)
+		s.scratch[w] = buf
+	}
+	buf = buf[:n]
+	for j := range buf {
+		if arr.IsValid(j) {
+			buf[j] = 1
+		} else {
+			buf[j] = 0
+		}
+	}
+	return buf
+}
+
+func (s *parquetSink) closeRowGroup() error {
+	rg := s.fw.NumRowGroups() - 1
+	err := s.rgw.Close()
+	s.rgw = nil
+	if err != nil {
+		return s.fail(rg, "", err)
+	}
+	return nil
+}
+
+func (s *parquetSink) fail(rowGroup int, column string, err error) error {
+	if s.err == nil {
+		s.err = &Error{File: s.name, RowGroup: rowGroup, Row: -1, Column: column, Err: fmt.Errorf("write Parquet: %w", err)}
+	}
+	return s.err
+}
+
+// Close finishes the last row group and the footer and, for a file sink,
+// commits the file. After a failed Write it aborts and returns that error.
+func (s *parquetSink) Close() error {
+	if s.closed {
+		return s.err
+	}
+	s.closed = true
+	if s.err == nil && s.rgw != nil {
+		s.closeRowGroup()
+	}
+	if s.err == nil {
+		if err := s.fw.Close(); err != nil {
+			s.fail(-1, "", err)
+		}
+	} else {
+		s.fw.Close()
+	}
+	if s.atomic == nil {
+		return s.err
+	}
+	if s.err != nil {
+		s.atomic.Abort()
+		return s.err
+	}
+	if err := s.atomic.Commit(); err != nil {
+		s.err = err
+	}
+	return s.err
+}
+
+// Abort drops the output; for a file sink the target is left untouched.
+// A writer sink writes nothing more to its writer.
+func (s *parquetSink) Abort() error {
+	if s.closed {
+		if s.atomic != nil {
+			return s.atomic.Abort()
+		}
+		return nil
+	}
+	s.closed = true
+	if s.err == nil {
+		s.err = At(s.name, errors.New("aborted"))
+	}
+	if s.atomic == nil {
+		return nil
+	}
+	// Finishing into the doomed temporary file releases the encoder's buffers.
+	if s.rgw != nil {
+		s.rgw.Close()
+		s.rgw = nil
+	}
+	s.fw.Close()
+	return s.atomic.Abort()
+}
+
+var _ Committer = (*parquetSink)(nil)

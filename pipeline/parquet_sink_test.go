@@ -1,0 +1,309 @@
+package pipeline
+
+import (
+	"bytes"
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"os"
+	"path/filepath"
+	"testing"
+
+	"github.com/apache/arrow-go/v18/arrow"
+	"github.com/apache/arrow-go/v18/arrow/array"
+	"github.com/apache/arrow-go/v18/arrow/memory"
+	pq "github.com/parquet-go/parquet-go"
+	"github.com/parquet-go/parquet-go/format"
+)
+
+var sinkSchema = arrow.NewSchema([]arrow.Field{
+	{Name: "id", Type: arrow.PrimitiveTypes.Int64},
+	{Name: "x", Type: arrow.PrimitiveTypes.Float64, Nullable: true},
+	{Name: "k", Type: arrow.PrimitiveTypes.Int32, Nullable: true},
+	{Name: "region", Type: arrow.BinaryTypes.String, Nullable: true},
+	{Name: "treated", Type: arrow.FixedWidthTypes.Boolean, Nullable: true},
+	{Name: "level", Type: &arrow.DictionaryType{IndexType: arrow.PrimitiveTypes.Int32, ValueType: arrow.BinaryTypes.String}, Nullable: true},
+}, nil)
+
+var levels = []string{"low", "mid", "high"}
+
+// testRow is the value of each column at row i; nulls follow fixed patterns.
+func testRow(i int64) (id int64, x float64, xNull bool, k int32, kNull bool, region string, rNull bool, treated, tNull bool, level string, lNull bool) {
+	return i, float64(i)*0.5 - 3, i%7 == 3, int32(i % 11), i%5 == 0, fmt.Sprintf("r%d", i%13), i%17 == 0, i%3 == 0, i%19 == 0, levels[i%3], i%23 == 0
+}
+
+func testBatch(mem memory.Allocator, start, n int64) arrow.RecordBatch {
+	b := array.NewRecordBuilder(mem, sinkSchema)
+	defer b.Release()
+	for i := start; i < start+n; i++ {
+		id, x, xn, k, kn, r, rn, tr, tn, lv, ln := testRow(i)
+		b.Field(0).(*array.Int64Builder).Append(id)
+		if xn {
+			b.Field(1).AppendNull()
+		} else {
+			b.Field(1).(*array.Float64Builder).Append(x)
+		}
+		if kn {
+			b.Field(2).AppendNull()
+		} else {
+			b.Field(2).(*array.Int32Builder).Append(k)
+		}
+		if rn {
+			b.Field(3).AppendNull()
+		} else {
+			b.Field(3).(*array.StringBuilder).Append(r)
+		}
+		if tn {
+			b.Field(4).AppendNull()
+		} else {
+			b.Field(4).(*array.BooleanBuilder).Append(tr)
+		}
+		if ln {
+			b.Field(5).AppendNull()
+		} else if err := b.Field(5).(*array.BinaryDictionaryBuilder).AppendString(lv); err != nil {
+			panic(err)
+		}
+	}
+	return b.NewRecordBatch()
+}
+
+// writeTest writes rows in batches of the given sizes and returns the bytes.
+func writeTest(t *testing.T, opt ParquetSinkOptions, sizes ...int64) []byte {
+	t.Helper()
+	mem := memory.NewCheckedAllocator(memory.NewGoAllocator())
+	opt.Alloc = mem
+	var buf bytes.Buffer
+	s, err := NewParquetWriter(&buf, sinkSchema, opt)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var start int64
+	for _, n := range sizes {
+		rec := testBatch(mem, start, n)
+		err := s.Write(context.Background(), rec)
+		rec.Release()
+		if err != nil {
+			t.Fatal(err)
+		}
+		start += n
+	}
+	if err := s.Close(); err != nil {
+		t.Fatal(err)
+	}
+	mem.AssertSize(t, 0)
+	return buf.Bytes()
+}
+
+func openPQ(t *testing.T, data []byte) *pq.File {
+	t.Helper()
+	f, err := pq.OpenFile(bytes.NewReader(data), int64(len(data)))
+	if err != nil {
+		t.Fatalf("parquet-go cannot open the output: %v", err)
+	}
+	return f
+}
+
+// TestParquetSinkRoundTrip reads the output back with parquet-go, a second,
+// independent implementation of the format.
+func TestParquetSinkRoundTrip(t *testing.T) {
+	sizes := []int64{1, 999, 1000, 2500, 0, 37, 463}
+	var total int64
+	for _, n := range sizes {
+		total += n
+	}
+	data := writeTest(t, ParquetSinkOptions{RowGroupRows: 1000}, sizes...)
+	f := openPQ(t, data)
+	if f.NumRows() != total {
+		t.Fatalf("rows %d, want %d", f.NumRows(), total)
+	}
+	for i, rg := range f.RowGroups() {
+		want := min(int64(1000), total-int64(i)*1000)
+		if rg.NumRows() != want {
+			t.Errorf("row group %d has %d rows, want %d", i, rg.NumRows(), want)
+		}
+	}
+	r := pq.NewReader(bytes.NewReader(data))
+	defer r.Close()
+	rows := make([]pq.Row, 128)
+	var i int64
+	for {
+		n, err := r.ReadRows(rows)
+		for _, row := range rows[:n] {
+			id, x, xn, k, kn, rg, rn, tr, tn, lv, ln := testRow(i)
+			check := func(col int, null bool, same bool) {
+				v := row[col]
+				if v.IsNull() != null || (!null && !same) {
+					t.Fatalf("row %d column %d: got %v", i, col, v)
+				}
+			}
+			check(0, false, row[0].Int64() == id)
+			check(1, xn, row[1].Double() == x)
+			check(2, kn, row[2].Int32() == k)
+			check(3, rn, string(row[3].ByteArray()) == rg)
+			check(4, tn, row[4].Boolean() == tr)
+			check(5, ln, string(row[5].ByteArray()) == lv)
+			i++
+		}
+		if errors.Is(err, io.EOF) {
+			break
+		}
+		if err != nil {
+			t.Fatal(err)
+		}
+	}
+	if i != total {
+		t.Errorf("read %d rows, want %d", i, total)
+	}
+}
+
+func TestParquetSinkDeterministic(t *testing.T) {
+	sizes := []int64{700, 700, 700, 5}
+	a := writeTest(t, ParquetSinkOptions{RowGroupRows: 1000, Workers: 1}, sizes...)
+	b := writeTest(t, ParquetSinkOptions{RowGroupRows: 1000, Workers: 4}, sizes...)
+	c := writeTest(t, ParquetSinkOptions{RowGroupRows: 1000, Workers: 4}, sizes...)
+	if !bytes.Equal(a, b) || !bytes.Equal(b, c) {
+		t.Error("output bytes depend on the run or the worker count")
+	}
+}
+
+func TestParquetSinkMetadata(t *testing.T) {
+	md := arrow.NewMetadata([]string{"owner", "heft.model"}, []string{"warehouse", `{"v":1}`})
+	data := writeTest(t, ParquetSinkOptions{Metadata: md, CreatedBy: "heft test"}, 10)
+	f := openPQ(t, data)
+	for i, k := range md.Keys() {
+		if v, ok := f.Lookup(k); !ok || v != md.Values()[i] {
+			t.Errorf("metadata %q = %q, %v; want %q", k, v, ok, md.Values()[i])
+		}
+	}
+	if _, ok := f.Lookup("ARROW:schema"); !ok {
+		t.Error("Arrow schema not stored")
+	}
+	if got := f.Metadata().CreatedBy; got != "heft test" {
+		t.Errorf("created_by %q", got)
+	}
+	data = writeTest(t, ParquetSinkOptions{NoArrowSchema: true}, 10)
+	if _, ok := openPQ(t, data).Lookup("ARROW:schema"); ok {
+		t.Error("Arrow schema stored despite NoArrowSchema")
+	}
+}
+
+func TestParquetSinkCompression(t *testing.T) {
+	for _, tc := range []struct {
+		name string
+		want format.CompressionCodec
+	}{
+		{"", format.Snappy}, {"snappy", format.Snappy}, {"zstd", format.Zstd}, {"none", format.Uncompressed}, {"gzip", format.Gzip},
+	} {
+		data := writeTest(t, ParquetSinkOptions{Compression: tc.name}, 50)
+		for _, col := range openPQ(t, data).Metadata().RowGroups[0].Columns {
+			if col.MetaData.Codec != tc.want {
+				t.Errorf("compression %q: column %v has codec %v", tc.name, col.MetaData.PathInSchema, col.MetaData.Codec)
+			}
+		}
+	}
+	if _, err := NewParquetWriter(io.Discard, sinkSchema, ParquetSinkOptions{Compression: "lzma"}); err == nil {
+		t.Error("unknown compression accepted")
+	}
+}
+
+func TestParquetSinkDictionaryChoice(t *testing.T) {
+	dictCols := func(data []byte) (n int) {
+		for _, col := range openPQ(t, data).Metadata().RowGroups[0].Columns {
+			if col.MetaData.DictionaryPageOffset > 0 {
+				n++
+			}
+		}
+		return n
+	}
+	if n := dictCols(writeTest(t, ParquetSinkOptions{}, 100)); n != 2 {
+		t.Errorf("default: %d dictionary columns, want the 2 string ones", n)
+	}
+	if n := dictCols(writeTest(t, ParquetSinkOptions{Dictionary: "none"}, 100)); n != 0 {
+		t.Errorf("none: %d dictionary columns", n)
+	}
+	// Parquet has no dictionary encoding for booleans.
+	if n := dictCols(writeTest(t, ParquetSinkOptions{Dictionary: "all"}, 100)); n != 5 {
+		t.Errorf("all: %d dictionary columns", n)
+	}
+}
+
+func TestParquetSinkFile(t *testing.T) {
+	dir := t.TempDir()
+	target := filepath.Join(dir, "scored.parquet")
+	mem := memory.NewCheckedAllocator(memory.NewGoAllocator())
+	s, err := NewParquetSink(target, sinkSchema, ParquetSinkOptions{Alloc: mem})
+	if err != nil {
+		t.Fatal(err)
+	}
+	rec := testBatch(mem, 0, 100)
+	defer rec.Release()
+	if err := s.Write(context.Background(), rec); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := os.Stat(target); !errors.Is(err, os.ErrNotExist) {
+		t.Error("target exists before Close")
+	}
+	if err := s.Close(); err != nil {
+		t.Fatal(err)
+	}
+	if err := s.Abort(); err != nil {
+		t.Errorf("abort after close: %v", err)
+	}
+	data, err := os.ReadFile(target)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if openPQ(t, data).NumRows() != 100 {
+		t.Error("row count")
+	}
+
+	// An aborted second run leaves the first output alone.
+	s, err = NewParquetSink(target, sinkSchema, ParquetSinkOptions{Alloc: mem})
+	if err != nil {
+		t.Fatal(err)
+	}
+	s.Write(context.Background(), rec)
+	if err := s.Abort(); err != nil {
+		t.Fatal(err)
+	}
+	if got := listDir(t, dir); len(got) != 1 {
+		t.Errorf("directory holds %v", got)
+	}
+	if again, _ := os.ReadFile(target); !bytes.Equal(again, data) {
+		t.Error("abort changed the target")
+	}
+	rec.Release()
+	rec = nil
+	mem.AssertSize(t, 0)
+}
+
+func TestParquetSinkSchemaMismatch(t *testing.T) {
+	dir := t.TempDir()
+	target := filepath.Join(dir, "out.parquet")
+	s, err := NewParquetSink(target, sinkSchema, ParquetSinkOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	other := newSliceSource(memory.DefaultAllocator, 3)
+	other.Next(context.Background())
+	err = s.Write(context.Background(), other.RecordBatch())
+	other.Close()
+	var pe *Error
+	if !errors.As(err, &pe) || pe.File != target {
+		t.Fatalf("error %v, want a *Error naming the output", err)
+	}
+	if err := s.Close(); err == nil {
+		t.Error("Close committed after a failed write")
+	}
+	if got := listDir(t, dir); len(got) != 0 {
+		t.Errorf("directory holds %v", got)
+	}
+}
+
+func TestParquetSinkRejectsNested(t *testing.T) {
+	sc := arrow.NewSchema([]arrow.Field{{Name: "tags", Type: arrow.ListOf(arrow.BinaryTypes.String)}}, nil)
+	if _, err := NewParquetWriter(io.Discard, sc, ParquetSinkOptions{}); err == nil {
+		t.Error("nested column accepted")
+	}
+}
