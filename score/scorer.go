@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"slices"
 
 	"github.com/heft-project/heft/fit"
 	"github.com/heft-project/heft/pipeline"
@@ -73,6 +74,19 @@ func New(m *fit.Model, p Policy) (*Scorer, error) {
 	if err := checkGLM("propensity", g); err != nil {
 		return nil, err
 	}
+	if m.Encoding.Treatment.Column != "" && len(g.Terms) > 0 {
+		// The encoder produces Encoding.Terms(); coefficients for other
+		// terms would be silently misapplied.
+		want := m.Encoding.Terms()
+		if !slices.Equal(want, g.Terms) {
+			j := 0
+			for j < len(want) && j < len(g.Terms) && want[j] == g.Terms[j] {
+				j++
+			}
+			return nil, fmt.Errorf("model file: the propensity model's terms (%d) do not match the encoding's (%d), first at term %d (%q vs %q)",
+				len(g.Terms), len(want), j, at(g.Terms, j), at(want, j))
+		}
+	}
 	s := &Scorer{policy: p, est: est, share: m.Reference.ShareTreated, prop: coefOnly(g)}
 	if p.Stabilize && !(s.share > 0 && s.share < 1) {
 		return nil, fmt.Errorf("--stabilize: the model's share of treated rows is %v, want a value strictly between 0 and 1", s.share)
@@ -122,6 +136,13 @@ func checkGLM(name string, g *fit.GLM) error {
 		}
 	}
 	return nil
+}
+
+func at(s []string, j int) string {
+	if j < len(s) {
+		return s[j]
+	}
+	return "(none)"
 }
 
 func termName(g *fit.GLM, j int) string {

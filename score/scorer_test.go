@@ -398,3 +398,17 @@ func BenchmarkScore(b *testing.B) {
 	}
 	b.ReportMetric(float64(n)*float64(b.N)/b.Elapsed().Seconds(), "rows/s")
 }
+
+func TestNewTermsMismatch(t *testing.T) {
+	m := &fit.Model{
+		Encoding:   fit.Encoding{Treatment: fit.Treatment{Column: "t"}, Columns: []fit.ColumnSpec{{Name: "x", Kind: fit.KindNumeric}}},
+		Propensity: fit.GLM{Family: fit.FamilyBinomial, Terms: []string{"intercept", "y"}, Coef: []float64{0, 1}},
+	}
+	if _, err := New(m, Policy{Estimand: ATE}); err == nil || !strings.Contains(err.Error(), "terms") {
+		t.Errorf("error %v, want a terms mismatch", err)
+	}
+	m.Propensity.Terms[1] = "x"
+	if _, err := New(m, Policy{Estimand: ATE}); err != nil {
+		t.Error(err)
+	}
+}
