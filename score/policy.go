@@ -35,6 +35,7 @@ type Scores struct {
 	InSupport []bool
 	// Mu0 and Mu1 are the outcome models' predictions (nil without them).
 	Mu0, Mu1 []float64
-	// Counts for the report.
+	// Counts for the report: Clipped and Trimmed count rows (null
+	// treatment included), Truncated the in-support weights that were capped.
 	Clipped, Trimmed, Truncated int64
 }
