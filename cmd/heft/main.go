@@ -1,0 +1,48 @@
+// Command heft adds inverse-probability weights to tables: `heft fit` fits
+// and saves a propensity model on a sample, `heft score` streams every batch
+// of the full table through it, appending propensities and weights while
+// mergeable accumulators compute effect estimates and balance diagnostics.
+package main
+
+import (
+	"context"
+	"fmt"
+	"io"
+	"os"
+	"os/signal"
+	"syscall"
+)
+
+func main() {
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	code := run(ctx, os.Args[1:], os.Stdin, os.Stdout, os.Stderr)
+	stop()
+	os.Exit(code)
+}
+
+// run executes one heft command and returns its exit code. Errors are
+// written once, here, as a single line on stderr.
+func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) (code int) {
+	defer func() {
+		if r := recover(); r != nil {
+			fmt.Fprintf(stderr, "heft: internal error: %v (please report this)\n", r)
+			code = ExitInternal
+		}
+	}()
+	env := &Env{Stdin: stdin, Stdout: stdout, Stderr: stderr}
+	root := newRoot(env)
+	root.SetArgs(args)
+	root.SetIn(stdin)
+	root.SetOut(stdout)
+	root.SetErr(stderr)
+	err := root.ExecuteContext(ctx)
+	if err == nil {
+		return ExitOK
+	}
+	code = exitCode(ctx, err)
+	fmt.Fprintf(stderr, "heft: %v\n", err)
+	if code == ExitUsage {
+		fmt.Fprintln(stderr, "Run 'heft --help' for usage.")
+	}
+	return code
+}

@@ -1,0 +1,326 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"os"
+	"path/filepath"
+	"runtime"
+	"strings"
+	"time"
+
+	"github.com/apache/arrow-go/v18/arrow"
+	"github.com/apache/arrow-go/v18/arrow/memory"
+	"github.com/spf13/cobra"
+
+	"github.com/heft-project/heft/aggregate"
+	"github.com/heft-project/heft/fit"
+	"github.com/heft-project/heft/pipeline"
+	"github.com/heft-project/heft/score"
+)
+
+type scoreFlags struct {
+	model, out, format, estimand, unseen, compression string
+	workers, batchRows                                int
+	rowGroupRows                                      int64
+	policy                                            score.Policy
+	cols                                              score.Columns
+	state, report                                     string
+	reportOnly                                        bool
+	by                                                string
+	minSegmentRows, maxSegments                       int
+	gate                                              aggregate.Gate
+}
+
+func newScoreCmd(env *Env) *cobra.Command {
+	f := scoreFlags{cols: score.DefaultColumns()}
+	cmd := &cobra.Command{
+		Use:   "score --model MODEL.json -o OUT [flags] INPUT...",
+		Short: "Stream a table through the model, appending propensities and weights to every row",
+		Long: `Score streams INPUT (Parquet files, directories with hive-style partitions,
+globs, Arrow IPC files or streams, '-' for stdin) through the model and writes
+every input column unchanged plus propensity, weight and in_support (and
+mu0/mu1 with --predictions). OUT is a file, a directory (an existing one or a
+path ending in '/': one output file per input, partition folders kept, and a
+_SUCCESS marker written last), or '-' for an Arrow IPC stream on stdout.
+
+While it streams, mergeable accumulators compute effect estimates for every
+estimand, standard errors, balance, overlap and drift: --report writes the
+report, --state the partial state that 'heft merge' combines across
+partitions. With a gate (--max-smd, --min-ess-share, --max-psi) heft exits
+with code 7 after writing its outputs when the weights fail it.`,
+		Args: usageArgs(cobra.MinimumNArgs(1)),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			return runScore(cmd.Context(), env, &f, args)
+		},
+	}
+	fl := cmd.Flags()
+	fl.StringVarP(&f.model, "model", "m", "", "model file from 'heft fit'")
+	fl.StringVarP(&f.out, "output", "o", "", "output file, directory (ends in / or exists), or - for an Arrow stream on stdout")
+	fl.StringVar(&f.format, "format", "", "parquet or arrow (default: from the output's extension; parquet for directories)")
+	fl.StringVar(&f.estimand, "estimand", score.ATE, "weights for: ate, att, atc or overlap")
+	fl.BoolVar(&f.policy.Stabilize, "stabilize", false, "multiply weights by the marginal share of the row's arm at fit")
+	fl.Float64Var(&f.policy.Clip, "clip", 0, "bound propensities to [ε, 1−ε]")
+	fl.Float64Var(&f.policy.Trim, "trim", 0, "zero the weight where e is outside [α, 1−α] (e.g. 0.1)")
+	fl.Float64Var(&f.policy.TruncateQ, "truncate-quantile", 0, "cap weights at the fit sample's q-th weight quantile (e.g. 0.99)")
+	fl.StringVar(&f.unseen, "unseen", fit.UnseenError, "categorical levels not seen at fit: error, or reference (encode as the reference level and count)")
+	fl.BoolVar(&f.cols.Predictions, "predictions", false, "also write the outcome models' predictions mu0 and mu1")
+	fl.StringVar(&f.cols.Propensity, "propensity-column", f.cols.Propensity, "name of the appended propensity column")
+	fl.StringVar(&f.cols.Weight, "weight-column", f.cols.Weight, "name of the appended weight column")
+	fl.StringVar(&f.cols.InSupport, "in-support-column", f.cols.InSupport, "name of the appended in-support column")
+	fl.StringVar(&f.cols.Mu0, "mu0-column", f.cols.Mu0, "name of the appended control-outcome prediction")
+	fl.StringVar(&f.cols.Mu1, "mu1-column", f.cols.Mu1, "name of the appended treated-outcome prediction")
+	fl.StringVar(&f.compression, "compression", "snappy", "Parquet compression: snappy, zstd or none")
+	fl.Int64Var(&f.rowGroupRows, "row-group-rows", 131072, "rows per Parquet row group in the output")
+	fl.IntVar(&f.batchRows, "batch-rows", 65536, "rows per batch in flight (memory is bounded by batch size × queue depth)")
+	fl.IntVar(&f.workers, "workers", runtime.GOMAXPROCS(0), "scoring workers")
+	fl.StringVar(&f.state, "state", "", "write the mergeable accumulator state here (for 'heft merge')")
+	fl.StringVar(&f.report, "report", "", "write the report JSON here (- for stdout)")
+	fl.BoolVar(&f.reportOnly, "report-only", false, "compute the report without writing the table")
+	fl.StringVar(&f.by, "by", "", "segment columns: estimates and balance per segment")
+	fl.IntVar(&f.minSegmentRows, "min-segment-rows", 100, "suppress segments with fewer rows than this in either arm")
+	fl.IntVar(&f.maxSegments, "max-segments", 1000, "fail when there are more segments than this")
+	fl.Float64Var(&f.gate.MaxSMD, "max-smd", 0, "gate: fail when any term's weighted |SMD| exceeds this (e.g. 0.1)")
+	fl.Float64Var(&f.gate.MinESSShare, "min-ess-share", 0, "gate: fail when an arm's effective sample size is below this share of its rows")
+	fl.Float64Var(&f.gate.MaxPSI, "max-psi", 0, "gate: fail when the propensity drift index (PSI) since the fit exceeds this (e.g. 0.25)")
+	return cmd
+}
+
+// outputMode is where the scored table goes.
+type outputMode int
+
+const (
+	outNone   outputMode = iota // --report-only
+	outFile                     // one file
+	outDir                      // one file per input under a directory
+	outStdout                   // Arrow IPC stream on stdout
+)
+
+func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error {
+	start := time.Now()
+	if err := requireFlag("model", f.model); err != nil {
+		return err
+	}
+	f.policy.Estimand = strings.ToLower(f.estimand)
+	if err := f.policy.Validate(); err != nil {
+		return usagef(err)
+	}
+	if f.unseen != fit.UnseenError && f.unseen != fit.UnseenReference {
+		return usagef(fmt.Errorf("--unseen must be error or reference, not %q", f.unseen))
+	}
+	if f.workers < 1 || f.batchRows < 1 || f.rowGroupRows < 1 {
+		return usagef(errors.New("--workers, --batch-rows and --row-group-rows must be positive"))
+	}
+	mode := outFile
+	switch {
+	case f.reportOnly && f.out != "":
+		return usagef(errors.New("--report-only writes no table: drop -o"))
+	case f.reportOnly:
+		mode = outNone
+		if f.report == "" && f.state == "" {
+			env.Logf("heft score: --report-only without --report or --state: the summary goes to stderr only")
+		}
+	case f.out == "":
+		return usagef(errors.New("-o is required (or --report-only)"))
+	case f.out == "-":
+		mode = outStdout
+	case strings.HasSuffix(f.out, "/") || isDir(f.out):
+		mode = outDir
+	}
+	if f.report == "-" && mode == outStdout {
+		return usagef(errors.New("--report - and -o - would both write to stdout"))
+	}
+	format, err := outputFormat(f.format, f.out, mode)
+	if err != nil {
+		return err
+	}
+	m, err := fit.Load(f.model)
+	if err != nil {
+		return modelError{err}
+	}
+	if f.policy, err = f.policy.Resolve(m); err != nil {
+		return modelError{err}
+	}
+	if f.cols.Predictions && m.Outcome == nil {
+		return usagef(fmt.Errorf("--predictions needs outcome models; %s has none (fit with --outcome)", f.model))
+	}
+	ins, err := pipeline.Expand(args)
+	if err != nil {
+		return err
+	}
+	if mode == outFile && len(ins) > 1 {
+		return usagef(fmt.Errorf("%d inputs need a directory output (end -o with /) or -o - for a stream", len(ins)))
+	}
+	if mode == outFile || mode == outDir {
+		if err := refuseOverwrite(f.out, ins); err != nil {
+			return err
+		}
+	}
+	for _, p := range []string{f.state, f.report} {
+		if p != "" && p != "-" {
+			if err := refuseOverwrite(p, ins); err != nil {
+				return err
+			}
+		}
+	}
+	scorer, err := score.New(m, f.policy)
+	if err != nil {
+		return modelError{err}
+	}
+	mem := memory.DefaultAllocator
+	opt := pipeline.SourceOptions{Alloc: mem, BatchRows: f.batchRows, PartitionColumns: true, Stdin: env.Stdin}
+
+	// Check every input against the model before writing anything.
+	var schema0 *arrow.Schema
+	var total int64
+	for _, in := range ins {
+		if in.Path == "-" {
+			continue // a stream's schema is known only once it is read
+		}
+		src, err := pipeline.Open(ctx, in, opt)
+		if err != nil {
+			return err
+		}
+		s := src.Schema()
+		src.Close()
+		if err := m.CheckSchema(s, in.Path); err != nil {
+			return err
+		}
+		if schema0 == nil {
+			schema0 = s
+		}
+		if in.Format == pipeline.FormatParquet {
+			if rgs, err := pipeline.RowGroups(in.Path); err == nil {
+				for _, n := range rgs {
+					total += n
+				}
+			}
+		}
+	}
+	acfg := aggregate.Config{Model: m, Policy: f.policy, By: splitList(f.by), MinSegmentRows: f.minSegmentRows, MaxSegments: f.maxSegments, Gate: f.gate}
+	var state *aggregate.State
+	prog := newProgress(env, total)
+	run := &scoreRun{env: env, f: f, m: m, scorer: scorer, mem: mem, format: format, prog: prog}
+
+	// fold merges each batch's partial state in input order, so the report
+	// does not depend on the number of workers.
+	fold := func(p any) error {
+		if p == nil {
+			return nil
+		}
+		return state.Merge(p.(*aggregate.State))
+	}
+	newState := func(schema *arrow.Schema) error {
+		if state != nil {
+			return nil
+		}
+		s, err := aggregate.New(acfg, schema)
+		if err != nil {
+			return usagef(err)
+		}
+		state = s
+		return nil
+	}
+
+	switch mode {
+	case outDir:
+		dir, err := pipeline.NewOutDir(f.out)
+		if err != nil {
+			return outputError{err}
+		}
+		for _, in := range ins {
+			src, err := pipeline.Open(ctx, in, opt)
+			if err != nil {
+				return err
+			}
+			if err := newState(src.Schema()); err != nil {
+				src.Close()
+				return err
+			}
+			target := dir.Path(in.Rel, format.ext())
+			if err := os.MkdirAll(filepath.Dir(target), 0o755); err != nil {
+				src.Close()
+				return outputError{err}
+			}
+			err = run.one(ctx, src, in, target, state, fold)
+			src.Close()
+			if err != nil {
+				return err
+			}
+		}
+		if err := dir.Success(); err != nil {
+			return outputError{err}
+		}
+	default:
+		src, err := pipeline.Concat(ctx, ins, opt)
+		if err != nil {
+			return err
+		}
+		defer src.Close()
+		if err := m.CheckSchema(src.Schema(), ins[0].Path); err != nil {
+			return err
+		}
+		if err := newState(src.Schema()); err != nil {
+			return err
+		}
+		target := f.out
+		if mode == outStdout {
+			target = "-"
+		} else if mode == outNone {
+			target = ""
+		}
+		if err := run.one(ctx, src, ins[0], target, state, fold); err != nil {
+			return err
+		}
+	}
+	prog.Finish()
+	state.Inputs = inputPaths(ins)
+	state.RunSeconds = time.Since(start).Seconds()
+	return finishReport(env, state, f.state, f.report)
+}
+
+// finishReport writes the state and report files, prints the summary, and
+// turns a failed gate into its exit code (after everything was written).
+func finishReport(env *Env, state *aggregate.State, statePath, reportPath string) error {
+	if statePath != "" {
+		if err := state.WriteFile(statePath); err != nil {
+			return outputError{fmt.Errorf("writing state %s: %w", statePath, err)}
+		}
+	}
+	rep := state.Report()
+	if reportPath != "" {
+		if err := writeReportJSON(env, rep, reportPath); err != nil {
+			return outputError{fmt.Errorf("writing report %s: %w", reportPath, err)}
+		}
+	}
+	if !env.Quiet {
+		if err := rep.WriteText(env.Stderr); err != nil {
+			return err
+		}
+	}
+	if rep.Failed() {
+		return gateError{errors.New("the weights failed the gate (see the report's gate section); outputs were written")}
+	}
+	return nil
+}
+
+func writeReportJSON(env *Env, rep *aggregate.Report, path string) error {
+	if path == "-" {
+		return rep.WriteJSON(env.Stdout)
+	}
+	af, err := pipeline.CreateAtomic(path)
+	if err != nil {
+		return err
+	}
+	if err := rep.WriteJSON(af); err != nil {
+		af.Abort()
+		return err
+	}
+	return af.Commit()
+}
+
+func isDir(p string) bool {
+	st, err := os.Stat(p)
+	return err == nil && st.IsDir()
+}
