@@ -16,8 +16,9 @@ import (
 const (
 	candidateEta = 10
 	boundaryEta  = 15
-	probeSteps   = 10
+	probeSteps   = 40
 	probeStepTol = 1e-8 // a converged step is this small in standardized units
+	divergeStep  = 1e-3 // a step along a diverging direction is larger
 )
 
 // FitLogistic fits P(y=1|x) = 1/(1+exp(−(β0 + Σ_j β_j x_j))) by
@@ -252,7 +253,9 @@ func probeSeparation(ctx context.Context, d *stdDesign, y []float64, terms []str
 	p := d.p()
 	var last []float64
 	diverging := false
+	before := make([]float64, d.n)
 	for range probeSteps {
+		copy(before, curEta())
 		if err := cp.compute(ctx, d, fill); err != nil {
 			return nil, err
 		}
@@ -275,11 +278,28 @@ func probeSeparation(ctx context.Context, d *stdDesign, y []float64, terms []str
 		for _, v := range taken {
 			big = math.Max(big, math.Abs(v))
 		}
+		// At a finite optimum the steps shrink quadratically; along a
+		// diverging direction they keep a size of order one.
+		diverging = big >= divergeStep
 		if big < probeStepTol {
-			diverging = false
 			break
 		}
-		diverging = true
+		if !diverging {
+			continue
+		}
+		// Stop once the rows short of the boundary have stopped moving:
+		// what remains is the finite part of the fit.
+		e := curEta()
+		moving := false
+		for i, v := range e {
+			if !atBoundary(v, y[i], boundaryEta) && math.Abs(v-before[i]) > 1e-3 {
+				moving = true
+				break
+			}
+		}
+		if !moving {
+			break
+		}
 	}
 	eta := curEta()
 	nb := countBoundary(eta, y, boundaryEta)
@@ -289,7 +309,7 @@ func probeSeparation(ctx context.Context, d *stdDesign, y []float64, terms []str
 		unit := func(lo, hi int, sw, r []float64) {
 			for i := range sw {
 				e := eta[lo+i]
-				if (e > boundaryEta && y[lo+i] == 1) || (e < -boundaryEta && y[lo+i] == 0) {
+				if atBoundary(e, y[lo+i], boundaryEta) {
 					sw[i] = 0
 				} else {
 					sw[i] = 1
@@ -339,11 +359,17 @@ func largest(v []float64, rel float64) []int {
 func countBoundary(eta, y []float64, bound float64) int {
 	n := 0
 	for i, e := range eta {
-		if (e > bound && y[i] == 1) || (e < -bound && y[i] == 0) {
+		if atBoundary(e, y[i], bound) {
 			n++
 		}
 	}
 	return n
+}
+
+// atBoundary says whether a row is fitted beyond the bound on the side of
+// its own outcome.
+func atBoundary(eta, y, bound float64) bool {
+	return (eta > bound && y == 1) || (eta < -bound && y == 0)
 }
 
 // logistic returns μ = 1/(1+e^−η), 1−μ and μ(1−μ) without cancellation.
