@@ -99,7 +99,7 @@ func QuantileGrid() []float64 {
 // Weights come from the unclipped propensities e; rows with t = −1 and rows
 // whose weight is not finite (e exactly 0 or 1) are left out, because an
 // infinite quantile cannot be stored in JSON nor serve as a cap. A key whose
-// estimand has no usable row is omitted.
+// estimand has no usable row is omitted. e and t have the same length.
 func WeightQuantiles(e []float64, t []int8, shareTreated float64) map[string][]fit.Quantile {
 	qs := QuantileGrid()
 	out := make(map[string][]fit.Quantile, 2*len(Estimands))
