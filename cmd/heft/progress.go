@@ -44,11 +44,20 @@ func newProgress(env *Env, total int64) *progress {
 	return p
 }
 
-// Add records n more rows; the engine calls it from its ordered stage.
-func (p *progress) Add(n int64) {
+// Tracker returns the engine's progress callback for one input: the engine
+// reports rows done within that input, cumulatively.
+func (p *progress) Tracker() func(rows int64) {
+	p.mu.Lock()
+	base := p.rows
+	p.mu.Unlock()
+	return func(rows int64) { p.set(base + rows) }
+}
+
+func (p *progress) set(rows int64) {
 	p.mu.Lock()
 	defer p.mu.Unlock()
-	p.rows += n
+	n := rows - p.rows
+	p.rows = rows
 	if p.bar != nil {
 		p.bar.Add64(n)
 		return

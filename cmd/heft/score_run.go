@@ -109,7 +109,7 @@ func (r *scoreRun) one(ctx context.Context, src pipeline.Source, in pipeline.Inp
 			NewAccumulator: func() score.Accumulator { return state.Empty() },
 		}), nil
 	}
-	_, err = pipeline.Run(ctx, src, sink, newT, fold, pipeline.EngineOptions{Workers: f.workers, Progress: r.prog.Add})
+	_, err = pipeline.Run(ctx, src, sink, newT, fold, pipeline.EngineOptions{Workers: f.workers, Progress: r.prog.Tracker()})
 	if err != nil {
 		sink.Abort()
 		return err
