@@ -29,6 +29,10 @@ type SourceOptions struct {
 	PartitionColumns bool
 	Stdin            io.Reader                 // used for Path "-"; nil = os.Stdin
 	CSVTypes         map[string]arrow.DataType // type overrides for CSV columns; others are inferred
+
+	// readDict reads Parquet BYTE_ARRAY columns as dictionaries. Only the
+	// benchmark sets it, to compare with plain utf8 (see parquet_source.go).
+	readDict bool
 }
 
 func (o SourceOptions) alloc() memory.Allocator {

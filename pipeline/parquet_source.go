@@ -47,12 +47,6 @@ type parquetSource struct {
 	err error
 }
 
-// parquetReadDict reads BYTE_ARRAY columns as dictionaries when true. Plain
-// utf8 was measured to be as fast on our benchmark and is simpler for
-// consumers, so it is off; it is a constant, not a knob, to keep the one
-// behaviour tested.
-const parquetReadDict = false
-
 func openParquet(path string, p *projection, opt SourceOptions) (Source, error) {
 	s := &parquetSource{path: path, mem: opt.alloc(), batch: opt.batchRows(), rg: -1}
 	err := guard(path, func() error {
@@ -64,7 +58,7 @@ func openParquet(path string, p *projection, opt SourceOptions) (Source, error) 
 		}
 		s.pf = pf
 		arrProps := pqarrow.ArrowReadProperties{BatchSize: s.batch}
-		if parquetReadDict {
+		if opt.readDict {
 			sc := pf.MetaData().Schema
 			for i := range sc.NumColumns() {
 				if sc.Column(i).PhysicalType() == parquet.Types.ByteArray {

@@ -293,3 +293,86 @@ func TestParquetBadFiles(t *testing.T) {
 		t.Logf("%d flips detected", errs)
 	})
 }
+
+// benchSchema is a warehouse-like table: 12 columns of the common types.
+var benchSchema = arrow.NewSchema([]arrow.Field{
+	{Name: "id", Type: arrow.PrimitiveTypes.Int64},
+	{Name: "treated", Type: arrow.FixedWidthTypes.Boolean, Nullable: true},
+	{Name: "age", Type: arrow.PrimitiveTypes.Int32, Nullable: true},
+	{Name: "visits", Type: arrow.PrimitiveTypes.Int32, Nullable: true},
+	{Name: "tenure", Type: arrow.PrimitiveTypes.Int64, Nullable: true},
+	{Name: "spend", Type: arrow.PrimitiveTypes.Float64, Nullable: true},
+	{Name: "x1", Type: arrow.PrimitiveTypes.Float64, Nullable: true},
+	{Name: "x2", Type: arrow.PrimitiveTypes.Float64, Nullable: true},
+	{Name: "x3", Type: arrow.PrimitiveTypes.Float64, Nullable: true},
+	{Name: "ratio", Type: arrow.PrimitiveTypes.Float32, Nullable: true},
+	{Name: "region", Type: arrow.BinaryTypes.String, Nullable: true},
+	{Name: "segment", Type: arrow.BinaryTypes.String, Nullable: true},
+}, nil)
+
+// writeBenchFile writes rows rows of benchSchema (invented values) in
+// row groups of 256Ki rows.
+func writeBenchFile(b *testing.B, path string, rows int) {
+	mem := memory.NewGoAllocator()
+	regions := []string{"north", "south", "east", "west", "central"}
+	const chunk = 1 << 16
+	var recs []arrow.RecordBatch
+	for lo := 0; lo < rows; lo += chunk {
+		rb := array.NewRecordBuilder(mem, benchSchema)
+		for r := lo; r < min(lo+chunk, rows); r++ {
+			rb.Field(0).(*array.Int64Builder).Append(int64(r))
+			rb.Field(1).(*array.BooleanBuilder).Append(r%3 == 0)
+			rb.Field(2).(*array.Int32Builder).Append(int32(18 + r%60))
+			rb.Field(3).(*array.Int32Builder).Append(int32(r % 17))
+			rb.Field(4).(*array.Int64Builder).Append(int64(r % 3650))
+			if r%50 == 0 {
+				rb.Field(5).AppendNull()
+			} else {
+				rb.Field(5).(*array.Float64Builder).Append(float64(r%1000) * 1.25)
+			}
+			for j := 6; j <= 8; j++ {
+				rb.Field(j).(*array.Float64Builder).Append(float64((r*(j+7))%10007) / 10007)
+			}
+			rb.Field(9).(*array.Float32Builder).Append(float32(r%101) / 101)
+			rb.Field(10).(*array.StringBuilder).Append(regions[r%len(regions)])
+			rb.Field(11).(*array.StringBuilder).Append(fmt.Sprintf("seg-%04d", r%2000))
+		}
+		recs = append(recs, rb.NewRecordBatch())
+		rb.Release()
+	}
+	writeParquet(b, path, benchSchema, 1<<18, recs...)
+	for _, r := range recs {
+		r.Release()
+	}
+}
+
+// BenchmarkParquetRead reads a 1M-row, 12-column file, strings as plain
+// utf8 (what Open does) and as dictionaries.
+func BenchmarkParquetRead(b *testing.B) {
+	const rows = 1 << 20
+	path := filepath.Join(b.TempDir(), "bench.parquet")
+	writeBenchFile(b, path, rows)
+	for _, mode := range []struct {
+		name string
+		dict bool
+	}{{"utf8", false}, {"dict", true}} {
+		b.Run(mode.name, func(b *testing.B) {
+			opt := SourceOptions{readDict: mode.dict}
+			for b.Loop() {
+				src, err := Open(context.Background(), Input{Path: path, Format: FormatParquet}, opt)
+				if err != nil {
+					b.Fatal(err)
+				}
+				n := int64(0)
+				for src.Next(context.Background()) {
+					n += src.RecordBatch().NumRows()
+				}
+				if err := src.Err(); err != nil || n != rows {
+					b.Fatalf("%d rows, %v", n, err)
+				}
+				src.Close()
+			}
+			b.ReportMetric(float64(rows)*float64(b.N)/b.Elapsed().Seconds(), "rows/s")
+		})
+	}
+}
