@@ -106,6 +106,7 @@ func (fx *fixture) model() *fit.Model {
 
 // part is rows [lo, hi) as the score stage hands them to an accumulator.
 type part struct {
+	lo  int
 	rec arrow.RecordBatch
 	b   fit.Batch
 	s   score.Scores
@@ -114,14 +115,25 @@ type part struct {
 func (fx *fixture) part(t testing.TB, estimand string, lo, hi int) *part {
 	t.Helper()
 	n := hi - lo
-	p := &part{}
+	p := &part{lo: lo}
+	// invented per-row counts, additive over any split: row i has an
+	// unseen level when i%3 == 0, an imputed x2 when i%5 == 0, ...
+	every := func(k int) int64 {
+		var c int64
+		for i := lo; i < hi; i++ {
+			if i%k == 0 {
+				c++
+			}
+		}
+		return c
+	}
 	p.b = fit.Batch{N: n, X: make([][]float64, len(fx.x)), T: fx.t[lo:hi], Y: fx.y[lo:hi], YValid: fx.yValid[lo:hi],
-		Unseen: map[string]int64{"cat": int64(n % 3)}, MissingImputed: map[string]int64{"x2": int64(n % 5)}}
+		Unseen: map[string]int64{"cat": every(3)}, MissingImputed: map[string]int64{"x2": every(5)}}
 	for j := range fx.x {
 		p.b.X[j] = fx.x[j][lo:hi]
 	}
 	p.s = score.Scores{N: n, E: fx.e[lo:hi], W: make([]float64, n), WValid: make([]bool, n), InSupport: make([]bool, n),
-		Mu0: fx.mu0[lo:hi], Mu1: fx.mu1[lo:hi], Clipped: int64(n % 2), Trimmed: int64(n % 7)}
+		Mu0: fx.mu0[lo:hi], Mu1: fx.mu1[lo:hi], Clipped: every(2), Trimmed: every(7)}
 	for i := 0; i < n; i++ {
 		p.s.InSupport[i] = true
 		if tt := fx.t[lo+i]; tt >= 0 {

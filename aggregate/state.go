@@ -450,10 +450,14 @@ func (s *State) Merge(o *State) error {
 		return err
 	}
 	a, b := &s.a, &o.a
+	fresh := 0
 	for k := range b.seg {
-		if _, ok := a.seg[k]; !ok && len(a.seg) >= s.sh.set.MaxSegments {
-			return s.sh.seg.tooMany()
+		if _, ok := a.seg[k]; !ok {
+			fresh++
 		}
+	}
+	if len(a.seg)+fresh > s.sh.set.MaxSegments {
+		return s.sh.seg.tooMany()
 	}
 	if err := a.Whole.merge(&b.Whole); err != nil {
 		return err

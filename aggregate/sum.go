@@ -23,10 +23,12 @@ func (s *Sum) Add(x float64) {
 	s.S = t
 }
 
-// Merge adds the partial sum o.
+// Merge adds the partial sum o: its S with compensation, its C (already
+// small) directly, so that merging with an empty sum, on either side, gives
+// the other sum bit for bit.
 func (s *Sum) Merge(o Sum) {
 	s.Add(o.S)
-	s.Add(o.C)
+	s.C += o.C
 }
 
 // Value is the compensated total S + C.
