@@ -33,9 +33,9 @@ func testModel() *Model {
 	}
 	m := &Model{
 		Format: FormatName, FormatVersion: FormatVersion, HeftVersion: "test",
-		Created: time.Date(2026, 6, 1, 12, 0, 0, 0, time.UTC).Format(time.RFC3339),
-		Inputs:  []string{"a.parquet", "b.parquet"},
-		Schema:  []Field{{Name: "t", Type: "int64"}, {Name: "age", Type: "int64", Nullable: true}},
+		Created:  time.Date(2026, 6, 1, 12, 0, 0, 0, time.UTC).Format(time.RFC3339),
+		Inputs:   []string{"a.parquet", "b.parquet"},
+		Schema:   []Field{{Name: "t", Type: "int64"}, {Name: "age", Type: "int64", Nullable: true}},
 		Encoding: *e, Propensity: glm(FamilyBinomial, 0),
 		Outcome: &OutcomeModels{Kind: "continuous", Treated: glm(FamilyGaussian, 1.5), Control: glm(FamilyGaussian, 2.5)},
 		Diagnostics: Diagnostics{RowsRead: 1000, SampleRows: 100, Sampled: true, Seed: 7, NTreated: 40, NControl: 60, AUC: 0.7,
@@ -130,7 +130,10 @@ func TestModelFileRefusals(t *testing.T) {
 		{"wrong field type", bytes.Replace(good, []byte(`"n_treated": 40`), []byte(`"n_treated": "40"`), 1), `"diagnostics.n_treated"`},
 		{"no checksum", resumNoChecksum(t), "no checksum"},
 		{"coef length", resum(func(c *Model) { c.Propensity.Coef = c.Propensity.Coef[1:] }), "has 9 coefficients for 10 terms"},
-		{"terms", resum(func(c *Model) { c.Propensity.Terms = append([]string{}, c.Propensity.Terms...); c.Propensity.Terms[2] = "x" }),
+		{"terms", resum(func(c *Model) {
+			c.Propensity.Terms = append([]string{}, c.Propensity.Terms...)
+			c.Propensity.Terms[2] = "x"
+		}),
 			"propensity model terms"},
 		{"cov rows", resum(func(c *Model) { c.Propensity.Cov = c.Propensity.Cov[:3] }), "covariance has 3 rows"},
 		{"cov cols", resum(func(c *Model) { c.Propensity.Cov[4] = c.Propensity.Cov[4][:2] }), "covariance row 4 has 2 entries"},
@@ -181,7 +184,9 @@ func resumNoChecksum(t *testing.T) []byte {
 
 func TestCheckSchema(t *testing.T) {
 	m := testModel()
-	f := func(name string, typ arrow.DataType) arrow.Field { return arrow.Field{Name: name, Type: typ, Nullable: true} }
+	f := func(name string, typ arrow.DataType) arrow.Field {
+		return arrow.Field{Name: name, Type: typ, Nullable: true}
+	}
 	full := []arrow.Field{
 		f("t", arrow.PrimitiveTypes.Int64), f("age", arrow.PrimitiveTypes.Int32), f("inc", arrow.PrimitiveTypes.Float64),
 		f("reg", arrow.BinaryTypes.String), f("vip", arrow.FixedWidthTypes.Boolean), f("code", arrow.PrimitiveTypes.Int16),
