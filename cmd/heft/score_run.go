@@ -81,7 +81,7 @@ func (r *scoreRun) one(ctx context.Context, src pipeline.Source, in pipeline.Inp
 	if ms, ok := src.(pipeline.MetadataSource); ok {
 		inMeta = ms.Metadata()
 	}
-	meta := score.MergeMetadata(inMeta, score.Metadata(r.m, f.policy, f.cols, Version))
+	meta := score.MergeMetadata(inMeta, score.Metadata(r.m, r.scorer.Policy(), f.cols, Version))
 	outSchema, err := score.OutputSchema(fileSchema, f.cols, meta)
 	if err != nil {
 		return usagef(err)
