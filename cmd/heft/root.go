@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"runtime/pprof"
 
 	"github.com/spf13/cobra"
 	"golang.org/x/term"
@@ -46,6 +47,27 @@ correctly specified models; decisions about people need domain review.`,
 		SilenceErrors: true,
 	}
 	root.PersistentFlags().BoolVarP(&env.Quiet, "quiet", "q", false, "no progress or log lines on stderr")
+	var cpuProfile string
+	root.PersistentFlags().StringVar(&cpuProfile, "cpuprofile", "", "write a CPU profile (for developers)")
+	_ = root.PersistentFlags().MarkHidden("cpuprofile")
+	var profFile *os.File
+	root.PersistentPreRunE = func(*cobra.Command, []string) error {
+		if cpuProfile == "" {
+			return nil
+		}
+		f, err := os.Create(cpuProfile)
+		if err != nil {
+			return err
+		}
+		profFile = f
+		return pprof.StartCPUProfile(f)
+	}
+	root.PersistentPostRun = func(*cobra.Command, []string) {
+		if profFile != nil {
+			pprof.StopCPUProfile()
+			profFile.Close()
+		}
+	}
 	root.SetFlagErrorFunc(func(_ *cobra.Command, err error) error { return usagef(err) })
 	root.AddCommand(
 		newVersionCmd(env),
