@@ -127,16 +127,26 @@ type Effects struct {
 	Cross []Sum `json:"cross"`
 	Grad  []Sum `json:"grad"`
 
-	// Plain partial sums over at most flushRows rows, added into the
-	// compensated sums by flush; always empty between calls.
-	bSum, bCross, bGrad []float64
-	q                   []float64 // one row's gradient factors, per slot
-	pending             int
+	own *EffectsScratch // for Add; AddWith takes a shared one
 }
 
-// flushRows bounds the rows summed in plain floating point before the
-// partial sums go into the compensated ones.
-const flushRows = 256
+// blockRows is the rows per block: per-row values are written column-major
+// into scratch, and each block's sums are dot products (plain floating
+// point over at most blockRows rows) added into the compensated sums.
+const blockRows = 128
+
+// EffectsScratch is the per-block working memory of Add, about 70 KB. It
+// holds no results, so one scratch per goroutine can serve any number of
+// Effects (e.g. one per segment) through AddWith.
+type EffectsScratch struct {
+	v []float64 // nComp × blockRows, component-major
+	q []float64 // nSlots × blockRows, slot-major
+}
+
+// NewEffectsScratch allocates a scratch.
+func NewEffectsScratch() *EffectsScratch {
+	return &EffectsScratch{v: make([]float64, nComp*blockRows), q: make([]float64, nSlots*blockRows)}
+}
 
 // Components: each estimator's per-row values v, at a fixed offset.
 const (
@@ -239,46 +249,28 @@ func (a *Effects) logisticOutcome() bool {
 	return a.Config.OutcomeKind == "binary" || a.Config.OutcomeKind == fit.FamilyBinomial
 }
 
-func (a *Effects) scratch() {
-	if len(a.bSum) != nComp {
-		a.bSum = make([]float64, nComp)
-		a.bCross = make([]float64, nCross)
-		a.q = make([]float64, nSlots)
-	}
-	if len(a.bGrad) != len(a.Grad) {
-		a.bGrad = make([]float64, len(a.Grad))
-	}
-}
-
-// flush adds the plain partial sums into the compensated ones and clears
-// them.
-func (a *Effects) flush() {
-	for c, v := range a.bSum {
-		a.Sum[c].Add(v)
-		a.bSum[c] = 0
-	}
-	for c, v := range a.bCross {
-		a.Cross[c].Add(v)
-		a.bCross[c] = 0
-	}
-	for c, v := range a.bGrad {
-		a.Grad[c].Add(v)
-		a.bGrad[c] = 0
-	}
-	a.pending = 0
-}
-
 // Add folds in one scored batch (see the type's doc for the rows used). It
-// does not allocate after the first call.
+// allocates its scratch on the first call and nothing after.
 func (a *Effects) Add(b *fit.Batch, s *score.Scores) {
-	if a == nil || b == nil || s == nil || b.Y == nil {
+	if a == nil {
+		return
+	}
+	if a.own == nil {
+		a.own = NewEffectsScratch()
+	}
+	a.AddWith(b, s, a.own)
+}
+
+// AddWith is Add with the caller's scratch, which must not be in use by
+// another goroutine.
+func (a *Effects) AddWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch) {
+	if a == nil || b == nil || s == nil || b.Y == nil || sc == nil {
 		return
 	}
 	n := min(b.N, len(b.T), len(b.Y), len(s.E), len(s.W), len(s.InSupport))
 	if b.YValid != nil {
 		n = min(n, len(b.YValid))
 	}
-	a.scratch()
 	p := a.Config.NTerms
 	grad := p > 0 && len(a.Grad) == p*nSlots && len(b.X) == p-1
 	if grad {
@@ -303,148 +295,179 @@ func (a *Effects) Add(b *fit.Batch, s *score.Scores) {
 	run := pol.Estimand
 	logit := a.logisticOutcome()
 
+	last, ns := nComp, nSlots
+	if !aug {
+		last, ns = cAugATE, nAugFree
+	}
+	if !grad {
+		ns = 0
+	}
+	V, Q := sc.v, sc.q
 	var v, dE, dM1, dM0 [nComp]float64
-	q := a.q
-	bs, bc := a.bSum, a.bCross
-	for i := 0; i < n; i++ {
-		ti := b.T[i]
-		if ti != 0 && ti != 1 {
-			a.NullTreatment++
-			continue
-		}
-		if b.YValid != nil && !b.YValid[i] {
-			a.InvalidOutcome++
-			continue
-		}
-		if !s.InSupport[i] {
-			a.Trimmed++
-			continue
-		}
-		e, y, wr := s.E[i], b.Y[i], s.W[i]
-		var m0, m1 float64
-		if aug {
-			m0, m1 = s.Mu0[i], s.Mu1[i]
-		}
-		if !(e > 0 && e < 1) || !finite(y) || !finite(wr) || !finite(m0) || !finite(m1) {
-			a.Degenerate++
-			continue
-		}
-		a.Rows++
-
-		tt := float64(ti)
-		u := 1 - tt
-		sg := tt - u // +1 treated, −1 control
-		ie, ic := 1/e, 1/(1-e)
-		// The row's arm weight and its derivative in e, per estimand.
-		var wATE, dATE, wATT, dATT, wATC, dATC, wOv, dOv float64
-		if ti == 1 {
-			wATE, dATE = ie, -ie*ie
-			wATT, dATT = 1, 0
-			wATC, dATC = (1-e)*ie, -ie*ie
-			wOv, dOv = 1-e, -1
-		} else {
-			wATE, dATE = ic, ic*ic
-			wATT, dATT = e*ic, ic*ic
-			wATC, dATC = 1, 0
-			wOv, dOv = e, 1
-		}
-
-		// Horvitz–Thompson: ψ = sign·Y·w.
-		v[cIPWATE], v[cIPWATE+1], dE[cIPWATE] = sg*y*wATE, 1, sg*y*dATE
-		v[cIPWATT], v[cIPWATT+1], dE[cIPWATT] = sg*y*wATT, tt, sg*y*dATT
-		v[cIPWATC], v[cIPWATC+1], dE[cIPWATC] = sg*y*wATC, u, sg*y*dATC
-
-		// Hájek, with the written weight for the run's estimand.
-		truncated := trunc && wr >= pol.Cap
-		hajekRow(&v, &dE, cHajATE, run == score.ATE, wATE, dATE, wr, truncated, tt, u, y)
-		hajekRow(&v, &dE, cHajATT, run == score.ATT, wATT, dATT, wr, truncated, tt, u, y)
-		hajekRow(&v, &dE, cHajATC, run == score.ATC, wATC, dATC, wr, truncated, tt, u, y)
-		hajekRow(&v, &dE, cHajOver, run == score.Overlap, wOv, dOv, wr, truncated, tt, u, y)
-
-		if aug {
-			r1, r0 := y-m1, y-m0
-			v[cAugATE] = m1 - m0 + tt*r1*ie - u*r0*ic
-			v[cAugATE+1] = 1
-			dE[cAugATE] = -tt*r1*ie*ie - u*r0*ic*ic
-			dM1[cAugATE] = 1 - tt*ie
-			dM0[cAugATE] = -1 + u*ic
-
-			v[cAugATT], v[cAugATT+1] = sg*r0*wATT, tt
-			dE[cAugATT] = sg * r0 * dATT
-			dM0[cAugATT] = -sg * wATT
-
-			v[cAugATC], v[cAugATC+1] = sg*r1*wATC, u
-			dE[cAugATC] = sg * r1 * dATC
-			dM1[cAugATC] = -sg * wATC
-
-			h, dh, d := e*(1-e), 1-2*e, m1-m0
-			o := cAugOver
-			v[o], dE[o], dM1[o], dM0[o] = h*d, dh*d, h, -h
-			v[o+1], dE[o+1] = h, dh
-			v[o+2], dE[o+2], dM1[o+2] = tt*(1-e)*r1, -tt*r1, -tt*(1-e)
-			v[o+3], dE[o+3] = tt*(1-e), -tt
-			v[o+4], dE[o+4], dM0[o+4] = u*e*r0, u*r0, -u*e
-			v[o+5], dE[o+5] = u*e, u
-		}
-
-		last := nComp
-		if !aug {
-			last = cAugATE
-		}
-		for c := 0; c < last; c++ {
-			bs[c] += v[c]
-		}
-		k := 0
-		for _, blk := range effectBlocks {
-			if blk.augmented && !aug {
-				break
+	for lo := 0; lo < n; lo += blockRows {
+		hi := min(lo+blockRows, n)
+		for i := lo; i < hi; i++ {
+			r := i - lo
+			if !a.usable(b, s, i, aug) {
+				for c := 0; c < last; c++ {
+					V[c*blockRows+r] = 0
+				}
+				for si := 0; si < ns; si++ {
+					Q[si*blockRows+r] = 0
+				}
+				continue
 			}
-			for r := 0; r < blk.m; r++ {
-				vr := v[blk.off+r]
-				for c := r; c < blk.m; c++ {
-					bc[k] += vr * v[blk.off+c]
-					k++
+			a.Rows++
+			e, y, wr := s.E[i], b.Y[i], s.W[i]
+			var m0, m1 float64
+			if aug {
+				m0, m1 = s.Mu0[i], s.Mu1[i]
+			}
+
+			tt := float64(b.T[i])
+			u := 1 - tt
+			sg := tt - u // +1 treated, −1 control
+			ie, ic := 1/e, 1/(1-e)
+			// The row's arm weight and its derivative in e, per estimand.
+			var wATE, dATE, wATT, dATT, wATC, dATC, wOv, dOv float64
+			if b.T[i] == 1 {
+				wATE, dATE = ie, -ie*ie
+				wATT, dATT = 1, 0
+				wATC, dATC = (1-e)*ie, -ie*ie
+				wOv, dOv = 1-e, -1
+			} else {
+				wATE, dATE = ic, ic*ic
+				wATT, dATT = e*ic, ic*ic
+				wATC, dATC = 1, 0
+				wOv, dOv = e, 1
+			}
+
+			// Horvitz–Thompson: ψ = sign·Y·w.
+			v[cIPWATE], v[cIPWATE+1], dE[cIPWATE] = sg*y*wATE, 1, sg*y*dATE
+			v[cIPWATT], v[cIPWATT+1], dE[cIPWATT] = sg*y*wATT, tt, sg*y*dATT
+			v[cIPWATC], v[cIPWATC+1], dE[cIPWATC] = sg*y*wATC, u, sg*y*dATC
+
+			// Hájek, with the written weight for the run's estimand.
+			truncated := trunc && wr >= pol.Cap
+			hajekRow(&v, &dE, cHajATE, run == score.ATE, wATE, dATE, wr, truncated, tt, u, y)
+			hajekRow(&v, &dE, cHajATT, run == score.ATT, wATT, dATT, wr, truncated, tt, u, y)
+			hajekRow(&v, &dE, cHajATC, run == score.ATC, wATC, dATC, wr, truncated, tt, u, y)
+			hajekRow(&v, &dE, cHajOver, run == score.Overlap, wOv, dOv, wr, truncated, tt, u, y)
+
+			if aug {
+				r1, r0 := y-m1, y-m0
+				v[cAugATE] = m1 - m0 + tt*r1*ie - u*r0*ic
+				v[cAugATE+1] = 1
+				dE[cAugATE] = -tt*r1*ie*ie - u*r0*ic*ic
+				dM1[cAugATE] = 1 - tt*ie
+				dM0[cAugATE] = -1 + u*ic
+
+				v[cAugATT], v[cAugATT+1] = sg*r0*wATT, tt
+				dE[cAugATT] = sg * r0 * dATT
+				dM0[cAugATT] = -sg * wATT
+
+				v[cAugATC], v[cAugATC+1] = sg*r1*wATC, u
+				dE[cAugATC] = sg * r1 * dATC
+				dM1[cAugATC] = -sg * wATC
+
+				h, dh, d := e*(1-e), 1-2*e, m1-m0
+				o := cAugOver
+				v[o], dE[o], dM1[o], dM0[o] = h*d, dh*d, h, -h
+				v[o+1], dE[o+1] = h, dh
+				v[o+2], dE[o+2], dM1[o+2] = tt*(1-e)*r1, -tt*r1, -tt*(1-e)
+				v[o+3], dE[o+3] = tt*(1-e), -tt
+				v[o+4], dE[o+4], dM0[o+4] = u*e*r0, u*r0, -u*e
+				v[o+5], dE[o+5] = u*e, u
+			}
+
+			for c := 0; c < last; c++ {
+				V[c*blockRows+r] = v[c]
+			}
+			if ns > 0 {
+				ge := e * (1 - e)
+				if clip && (e <= clipLo || e >= clipHi) {
+					ge = 0
+				}
+				g1, g0 := 1.0, 1.0
+				if logit {
+					g1, g0 = m1*(1-m1), m0*(1-m0)
+				}
+				for si, sl := range slots[:ns] {
+					var d float64
+					switch sl.wrt {
+					case wrtE:
+						d = ge * dE[sl.comp]
+					case wrtM1:
+						d = g1 * dM1[sl.comp]
+					default:
+						d = g0 * dM0[sl.comp]
+					}
+					Q[si*blockRows+r] = d
 				}
 			}
 		}
+		a.fold(V, Q, hi-lo, lo, b.X, aug, ns)
+	}
+}
 
-		if grad {
-			ge := e * (1 - e)
-			if clip && (e <= clipLo || e >= clipHi) {
-				ge = 0
-			}
-			g1, g0 := 1.0, 1.0
-			if logit {
-				g1, g0 = m1*(1-m1), m0*(1-m0)
-			}
-			ns := nSlots
-			if !aug {
-				ns = nAugFree
-			}
-			for si := 0; si < ns; si++ {
-				sl := slots[si]
-				switch sl.wrt {
-				case wrtE:
-					q[si] = ge * dE[sl.comp]
-				case wrtM1:
-					q[si] = g1 * dM1[sl.comp]
-				default:
-					q[si] = g0 * dM0[sl.comp]
-				}
-			}
-			qs := q[:ns]
-			floats.Add(a.bGrad[:ns], qs)
-			for j, x := range b.X {
-				off := (j + 1) * nSlots
-				floats.AddScaled(a.bGrad[off:off+ns], x[i], qs)
-			}
+// usable reports whether row i enters the estimators, counting it where it
+// does not.
+func (a *Effects) usable(b *fit.Batch, s *score.Scores, i int, aug bool) bool {
+	if t := b.T[i]; t != 0 && t != 1 {
+		a.NullTreatment++
+		return false
+	}
+	if b.YValid != nil && !b.YValid[i] {
+		a.InvalidOutcome++
+		return false
+	}
+	if !s.InSupport[i] {
+		a.Trimmed++
+		return false
+	}
+	e := s.E[i]
+	ok := e > 0 && e < 1 && finite(b.Y[i]) && finite(s.W[i])
+	if aug {
+		ok = ok && finite(s.Mu0[i]) && finite(s.Mu1[i])
+	}
+	if !ok {
+		a.Degenerate++
+	}
+	return ok
+}
+
+// fold adds one block of L rows (batch rows lo…lo+L−1) into the sums: each
+// a dot product over the block, so every x column is read from memory once
+// per block and the rest comes from cache.
+func (a *Effects) fold(V, Q []float64, L, lo int, X [][]float64, aug bool, ns int) {
+	col := func(buf []float64, c int) []float64 { return buf[c*blockRows : c*blockRows+L] }
+	k := 0
+	for _, blk := range effectBlocks {
+		if blk.augmented && !aug {
+			break
 		}
-		a.pending++
-		if a.pending == flushRows {
-			a.flush()
+		for r := 0; r < blk.m; r++ {
+			vr := col(V, blk.off+r)
+			a.Sum[blk.off+r].Add(floats.Sum(vr))
+			for c := r; c < blk.m; c++ {
+				a.Cross[k].Add(floats.Dot(vr, col(V, blk.off+c)))
+				k++
+			}
 		}
 	}
-	a.flush()
+	if ns == 0 {
+		return
+	}
+	for si := 0; si < ns; si++ {
+		a.Grad[si].Add(floats.Sum(col(Q, si)))
+	}
+	for j, x := range X {
+		xb := x[lo : lo+L]
+		g := a.Grad[(j+1)*nSlots:]
+		for si := 0; si < ns; si++ {
+			g[si].Add(floats.Dot(col(Q, si), xb))
+		}
+	}
 }
 
 // hajekRow sets one Hájek block's components wTY, wT, w(1−T)Y, w(1−T) and
@@ -469,7 +492,8 @@ const nAugFree = 19
 // effectBlocks is the estimator table, read-only.
 var effectBlocks = blockTable()
 
-func finite(x float64) bool { return !math.IsNaN(x) && !math.IsInf(x, 0) }
+// finite is false for NaN and ±Inf.
+func finite(x float64) bool { return math.Abs(x) <= math.MaxFloat64 }
 
 // Merge adds o's sums into a. Both must come from the same configuration.
 func (a *Effects) Merge(o *Effects) error {
