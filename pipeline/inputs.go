@@ -80,9 +80,10 @@ func FormatOf(name string) (Format, bool) {
 //   - an existing file is taken as it is, its format from the extension or,
 //     failing that, from its magic bytes (PAR1, ARROW1, or an IPC stream's
 //     0xFFFFFFFF continuation marker);
-//   - a directory is walked recursively in lexical order, keeping files with
-//     a known extension and skipping names that start with '.' or '_' (such
-//     as _SUCCESS or .crc files and _temporary folders); key=value folders
+//   - a directory (or a symlink to one; linked folders below it are not
+//     followed) is walked recursively in lexical order, keeping files with a
+//     known extension and skipping names that start with '.' or '_' (such as
+//     _SUCCESS or .crc files and _temporary folders); key=value folders
 //     below it are recorded as Partitions;
 //   - anything else containing *, ? or [ is a filepath.Glob pattern. Its
 //     matches are taken like directory entries (known extensions, no hidden
@@ -200,11 +201,16 @@ func expandArg(arg string) ([]Input, error) {
 // walkDir lists the data files under dir, lexically, relative to root.
 func walkDir(root, dir string) ([]Input, error) {
 	var out []Input
-	err := filepath.WalkDir(dir, func(path string, d fs.DirEntry, err error) error {
+	start := dir
+	if info, err := os.Lstat(dir); err == nil && info.Mode()&fs.ModeSymlink != 0 {
+		// WalkDir does not follow a symlinked root; "link/." resolves it.
+		start = dir + string(filepath.Separator) + "."
+	}
+	err := filepath.WalkDir(start, func(path string, d fs.DirEntry, err error) error {
 		if err != nil {
 			return err
 		}
-		if path != dir && hidden(d.Name()) {
+		if path != start && hidden(d.Name()) {
 			if d.IsDir() {
 				return filepath.SkipDir
 			}

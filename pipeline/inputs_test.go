@@ -73,6 +73,9 @@ func TestExpand(t *testing.T) {
 		"glob/day=2/_b.parquet":                "PAR1",
 	})
 	in := func(p string) string { return filepath.Join(root, filepath.FromSlash(p)) }
+	if err := os.Symlink(in("flat"), in("latest")); err != nil {
+		t.Fatal(err)
+	}
 
 	tests := []struct {
 		name    string
@@ -91,6 +94,12 @@ func TestExpand(t *testing.T) {
 			"flat/c.feather root=flat rel=c.feather arrow-file\n" +
 			"flat/d.ipc root=flat rel=d.ipc arrow-file\n" +
 			"flat/e.parq root=flat rel=e.parq parquet\n"},
+		{name: "symlinked directory", args: []string{in("latest")}, want: "" +
+			"latest/a.csv root=latest rel=a.csv csv\n" +
+			"latest/b.ARROW root=latest rel=b.ARROW arrow-file\n" +
+			"latest/c.feather root=latest rel=c.feather arrow-file\n" +
+			"latest/d.ipc root=latest rel=d.ipc arrow-file\n" +
+			"latest/e.parq root=latest rel=e.parq parquet\n"},
 		{name: "plain files, sniffed, in argument order", args: []string{in("sniff/stream"), in("sniff/noext"), in("sniff/arrowfile")}, want: "" +
 			"sniff/stream root= rel=stream arrow-stream\n" +
 			"sniff/noext root= rel=noext parquet\n" +

@@ -227,3 +227,28 @@ func TestCancelledContext(t *testing.T) {
 		t.Fatalf("Err() = %v, want context.Canceled", err)
 	}
 }
+
+func TestParquetDuplicateColumns(t *testing.T) {
+	mem := memory.NewCheckedAllocator(memory.NewGoAllocator())
+	defer mem.AssertSize(t, 0)
+	sc := arrow.NewSchema([]arrow.Field{
+		{Name: "x", Type: arrow.PrimitiveTypes.Int64},
+		{Name: "y", Type: arrow.PrimitiveTypes.Int64},
+		{Name: "x", Type: arrow.PrimitiveTypes.Int64},
+	}, nil)
+	gen := memory.NewGoAllocator()
+	bld := array.NewInt64Builder(gen)
+	defer bld.Release()
+	bld.AppendValues([]int64{1, 2}, nil)
+	col := bld.NewArray()
+	defer col.Release()
+	rec := array.NewRecordBatch(sc, []arrow.Array{col, col, col}, 2)
+	defer rec.Release()
+	path := filepath.Join(t.TempDir(), "dup.parquet")
+	writeParquet(t, path, sc, 10, rec)
+	_, err := Open(context.Background(), Input{Path: path, Format: FormatParquet}, SourceOptions{Alloc: mem})
+	var e *Error
+	if !errors.As(err, &e) || e.File != path || e.Column != "x" || !strings.Contains(err.Error(), `duplicate column name "x"`) {
+		t.Fatalf("got %v, want an *Error naming %s and the duplicate x", err, path)
+	}
+}
