@@ -1,17 +1,21 @@
 package pipeline
 
 import (
-	"bufio"
 	"errors"
 	"fmt"
 	"io"
 	"os"
 	"path/filepath"
+	"sync"
 )
 
-// atomicBufferSize batches the many small writes of the Parquet and IPC
-// encoders into few system calls.
-const atomicBufferSize = 1 << 20
+// Writes are gathered into chunks of atomicChunkSize bytes that a
+// background goroutine writes to the file, so the kernel's copy overlaps the
+// encoding of the next row group. At most atomicChunks chunks exist.
+const (
+	atomicChunkSize = 1 << 20
+	atomicChunks    = 8
+)
 
 // AtomicFile is a file written beside its target under a unique temporary
 // name (".<base>.heft-tmp-<random>" in the same directory, so the final
@@ -19,12 +23,20 @@ const atomicBufferSize = 1 << 20
 // target and syncs the directory; until then the target is untouched.
 //
 // The first write error is kept: later writes return it, Commit returns it
-// after removing the temporary file.
+// after removing the temporary file. An AtomicFile is not safe for
+// concurrent use.
 type AtomicFile struct {
 	target string
 	f      *os.File
-	bw     *bufio.Writer
-	err    error // first write error, sticky
+	out    io.Writer // f, or a failing writer in tests
+	cur    []byte    // chunk being filled
+	free   chan []byte
+	full   chan []byte
+	chunks int           // allocated so far
+	wdone  chan struct{} // closed when the writer goroutine ends
+	mu     sync.Mutex
+	werr   error // first error of the writer goroutine
+	err    error // sticky error seen by Write
 	done   bool  // committed or aborted
 }
 
@@ -54,7 +66,7 @@ func CreateAtomic(target string) (*AtomicFile, error) {
 		os.Remove(f.Name())
 		return nil, At(target, fmt.Errorf("set output permissions: %w", err))
 	}
-	return &AtomicFile{target: target, f: f, bw: bufio.NewWriterSize(f, atomicBufferSize)}, nil
+	return &AtomicFile{target: target, f: f, out: f}, nil
 }
 
 // Name returns the target path (not the temporary one).
@@ -63,35 +75,109 @@ func (a *AtomicFile) Name() string { return a.target }
 // TempName returns the path of the temporary file.
 func (a *AtomicFile) TempName() string { return a.f.Name() }
 
-// Write writes to the temporary file.
+// Write copies p into the write-behind chunks; a failure of an earlier
+// background write is returned here.
 func (a *AtomicFile) Write(p []byte) (int, error) {
+	if a.err == nil && a.done {
+		a.err = At(a.target, errors.New("write after commit or abort"))
+	}
 	if a.err != nil {
 		return 0, a.err
 	}
-	if a.done {
-		return 0, At(a.target, errors.New("write after commit or abort"))
+	n := len(p)
+	for len(p) > 0 {
+		if a.cur == nil {
+			a.cur = a.getChunk()
+		}
+		k := copy(a.cur[len(a.cur):cap(a.cur)], p)
+		a.cur = a.cur[:len(a.cur)+k]
+		p = p[k:]
+		if len(a.cur) == cap(a.cur) {
+			a.flushChunk()
+		}
 	}
-	n, err := a.bw.Write(p)
-	if err != nil {
-		a.err = At(a.target, fmt.Errorf("write: %w", err))
-		return n, a.err
+	if err := a.writeErr(); err != nil {
+		a.err = err
+		return n, err
 	}
 	return n, nil
 }
 
-// Commit flushes and syncs the temporary file, renames it over the target and
-// syncs the directory so the rename survives a crash. On any failure the
-// temporary file is removed and the target is left as it was.
+func (a *AtomicFile) start() {
+	a.free = make(chan []byte, atomicChunks)
+	a.full = make(chan []byte, atomicChunks)
+	a.wdone = make(chan struct{})
+	go func() {
+		defer close(a.wdone)
+		for c := range a.full {
+			if a.writeErr() == nil {
+				if _, err := a.out.Write(c); err != nil {
+					a.mu.Lock()
+					a.werr = At(a.target, fmt.Errorf("write: %w", err))
+					a.mu.Unlock()
+				}
+			}
+			a.free <- c[:0]
+		}
+	}()
+}
+
+func (a *AtomicFile) getChunk() []byte {
+	if a.free == nil {
+		a.start()
+	}
+	select {
+	case c := <-a.free:
+		return c
+	default:
+	}
+	if a.chunks < atomicChunks {
+		a.chunks++
+		return make([]byte, 0, atomicChunkSize)
+	}
+	return <-a.free
+}
+
+func (a *AtomicFile) flushChunk() {
+	if len(a.cur) > 0 {
+		a.full <- a.cur
+	}
+	a.cur = nil
+}
+
+func (a *AtomicFile) writeErr() error {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	return a.werr
+}
+
+// drain hands the last chunk to the writer goroutine, waits for it to end
+// and returns the first write error.
+func (a *AtomicFile) drain() error {
+	if a.cur != nil {
+		a.flushChunk()
+	}
+	if a.full != nil {
+		close(a.full)
+		<-a.wdone
+		a.full = nil
+	}
+	if a.err != nil {
+		return a.err
+	}
+	return a.writeErr()
+}
+
+// Commit waits for the pending writes, syncs the temporary file, renames it
+// over the target and syncs the directory so the rename survives a crash.
+// On any failure the temporary file is removed and the target is left as it
+// was.
 func (a *AtomicFile) Commit() error {
 	if a.done {
 		return At(a.target, errors.New("commit after commit or abort"))
 	}
-	err := a.err
-	if err == nil {
-		if e := a.bw.Flush(); e != nil {
-			err = At(a.target, fmt.Errorf("write: %w", e))
-		}
-	}
+	a.done = true
+	err := a.drain()
 	if err == nil {
 		if e := a.f.Sync(); e != nil {
 			err = At(a.target, fmt.Errorf("sync: %w", e))
@@ -105,7 +191,6 @@ func (a *AtomicFile) Commit() error {
 			err = At(a.target, fmt.Errorf("rename into place: %w", e))
 		}
 	}
-	a.done = true
 	if err != nil {
 		os.Remove(a.f.Name())
 		return err
@@ -120,6 +205,7 @@ func (a *AtomicFile) Abort() error {
 		return nil
 	}
 	a.done = true
+	a.drain()
 	a.f.Close()
 	if err := os.Remove(a.f.Name()); err != nil && !errors.Is(err, os.ErrNotExist) {
 		return At(a.target, fmt.Errorf("remove temporary output: %w", err))

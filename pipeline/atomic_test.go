@@ -87,7 +87,7 @@ func TestAtomicWriteFailure(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	af.bw.Reset(failWriter{}) // the disk fills up under the buffer
+	af.out = failWriter{} // the disk fills up under the buffer
 	af.Write(make([]byte, 10))
 	err = af.Commit()
 	var pe *Error

@@ -142,12 +142,16 @@ func copyHeft(in, out string, batch int64, par bool, opt pipeline.ParquetSinkOpt
 	if err != nil {
 		return 0, err
 	}
+	start := time.Now()
 	rows, err := pipeline.Run(context.Background(), src, sink, func() (pipeline.Transform, error) { return identity{}, nil }, nil, eopt)
 	if err != nil {
 		sink.Abort()
 		return rows, err
 	}
-	return rows, sink.Close()
+	mid := time.Now()
+	err = sink.Close()
+	fmt.Fprintf(os.Stderr, "pqarrow: stream %.3fs, close+fsync+rename %.3fs\n", mid.Sub(start).Seconds(), time.Since(mid).Seconds())
+	return rows, err
 }
 
 func copyPqarrowPlain(in, out string, batch int64, par bool, rg int64) (int64, error) {
