@@ -176,7 +176,7 @@ func (x *ipcFile) close() error {
 func openArrowFile(path string, p *projection, opt SourceOptions) (Source, error) {
 	f, err := os.Open(path)
 	if err != nil {
-		return nil, At(path, err)
+		return nil, locate(err, path, -1, "")
 	}
 	var r *ipc.FileReader
 	err = guard(path, func() (err error) {
@@ -228,7 +228,7 @@ func openArrowStream(path string, p *projection, opt SourceOptions) (Source, err
 	} else {
 		f, err := os.Open(path)
 		if err != nil {
-			return nil, At(path, err)
+			return nil, locate(err, path, -1, "")
 		}
 		rd, c = f, f
 		// No message can be longer than the file: this keeps a damaged

@@ -48,7 +48,7 @@ type csvSource struct {
 func openCSV(path string, p *projection, opt SourceOptions) (Source, error) {
 	f, err := os.Open(path)
 	if err != nil {
-		return nil, At(path, err)
+		return nil, locate(err, path, -1, "")
 	}
 	defer f.Close()
 	r := csv.NewReader(bufio.NewReaderSize(f, 1<<16))

@@ -252,3 +252,14 @@ func TestParquetDuplicateColumns(t *testing.T) {
 		t.Fatalf("got %v, want an *Error naming %s and the duplicate x", err, path)
 	}
 }
+
+func TestOpenMissingFile(t *testing.T) {
+	for _, f := range []Format{FormatParquet, FormatArrowFile, FormatArrowStream, FormatCSV} {
+		path := filepath.Join(t.TempDir(), "gone")
+		_, err := Open(context.Background(), Input{Path: path, Format: f}, SourceOptions{})
+		var e *Error
+		if !errors.As(err, &e) || e.File != path || !errors.Is(err, os.ErrNotExist) || strings.Count(err.Error(), path) != 1 {
+			t.Errorf("%v: got %v, want an *Error naming %s once, wrapping ErrNotExist", f, err, path)
+		}
+	}
+}

@@ -80,10 +80,11 @@ func openParquet(path string, p *projection, opt SourceOptions) (Source, error) 
 	}
 	kv := s.pf.MetaData().KeyValueMetadata()
 	var keys, vals []string
+	kvals := kv.Values()
 	for i, k := range kv.Keys() {
 		if k != arrowSchemaKey {
 			keys = append(keys, k)
-			vals = append(vals, kv.Values()[i])
+			vals = append(vals, kvals[i])
 		}
 	}
 	s.meta = arrow.NewMetadata(keys, vals)

@@ -3,6 +3,7 @@ package pipeline
 import (
 	"errors"
 	"fmt"
+	"io/fs"
 )
 
 // ErrMalformed marks data the readers could not decode: a corrupt page, a
@@ -50,6 +51,11 @@ func locate(err error, file string, rowGroup int, column string) error {
 			out.Column = column
 		}
 		return &out
+	}
+	var pe *fs.PathError
+	if errors.As(err, &pe) && pe.Path == file {
+		// The Error already names the file; say it once.
+		err = fmt.Errorf("%s: %w", pe.Op, pe.Err)
 	}
 	return &Error{File: file, RowGroup: rowGroup, Row: -1, Column: column, Err: err}
 }
