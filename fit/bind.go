@@ -25,6 +25,7 @@ const (
 // another goroutine its own.
 type Encoder struct {
 	enc     *Encoding
+	schema  *arrow.Schema
 	file    string
 	unseen  string
 	nTerms  int // terms without the intercept
@@ -70,7 +71,7 @@ func (e *Encoding) Bind(schema *arrow.Schema, file string, outcome bool, unseen 
 	default:
 		return nil, fmt.Errorf("unseen-level policy %q: want %s or %s", unseen, UnseenError, UnseenReference)
 	}
-	enc := &Encoder{enc: e, file: file, unseen: unseen}
+	enc := &Encoder{enc: e, file: file, unseen: unseen, schema: schema}
 	var err error
 	if enc.treat, err = e.bindTreatment(schema, file); err != nil {
 		return nil, err
@@ -360,8 +361,11 @@ func (enc *Encoder) Encode(rec arrow.RecordBatch, loc pipeline.Location, b *Batc
 	locErr := func(i int, column string, err error) error {
 		return &pipeline.Error{File: loc.File, RowGroup: loc.RowGroup, Row: loc.Row + int64(i), Column: column, Err: err}
 	}
-	if int(rec.NumCols()) <= maxIndex(enc) {
-		return pipeline.At(loc.File, fmt.Errorf("batch has %d columns; the encoder was bound to a wider schema", rec.NumCols()))
+	if s := rec.Schema(); s != enc.schema {
+		if err := enc.sameLayout(s, loc.File); err != nil {
+			return err
+		}
+		enc.schema = s
 	}
 
 	// Treatment.
@@ -401,7 +405,7 @@ func (enc *Encoder) Encode(rec arrow.RecordBatch, loc pipeline.Location, b *Batc
 			}
 		}
 	} else {
-		b.Y, b.YValid = b.Y[:0], b.YValid[:0]
+		b.Y, b.YValid = nil, nil
 	}
 
 	// Covariates.
@@ -421,15 +425,33 @@ func (enc *Encoder) Encode(rec arrow.RecordBatch, loc pipeline.Location, b *Batc
 	return nil
 }
 
-func maxIndex(enc *Encoder) int {
-	m := enc.treat.idx
+// sameLayout checks that a batch's schema still has every bound column at
+// its position with the same class of type (nullability and metadata may
+// differ between a source's schema and its batches).
+func (enc *Encoder) sameLayout(s *arrow.Schema, file string) error {
+	check := func(b *binding) error {
+		if b.idx < s.NumFields() {
+			if f := s.Field(b.idx); f.Name == b.name && sameClass(classOf(f.Type), b.cls) {
+				return nil
+			}
+		}
+		return &pipeline.Error{File: file, RowGroup: -1, Row: -1, Column: b.name,
+			Err: errors.New("batch schema differs from the schema the encoder was bound to")}
+	}
+	if err := check(&enc.treat); err != nil {
+		return err
+	}
 	if enc.outcome != nil {
-		m = max(m, enc.outcome.idx)
+		if err := check(enc.outcome); err != nil {
+			return err
+		}
 	}
-	for _, c := range enc.cols {
-		m = max(m, c.idx)
+	for k := range enc.cols {
+		if err := check(&enc.cols[k]); err != nil {
+			return err
+		}
 	}
-	return m
+	return nil
 }
 
 func growInt8(s []int8, n int) []int8 {
@@ -448,8 +470,12 @@ func growBool(s []bool, n int) []bool {
 
 type locErrFunc func(i int, column string, err error) error
 
-func missingErr(locErr locErrFunc, name string, count, first int) error {
-	return locErr(first, name, fmt.Errorf("%d rows in this batch are missing (null or NaN), the first here; the model was fitted with missing=%s", count, MissingError))
+func (enc *Encoder) missingErr(locErr locErrFunc, name string, count, first int) error {
+	why := "the model was fitted with missing=" + MissingError
+	if enc.enc.Missing == MissingIndicator {
+		why = "the column had no missing values in the fit sample, so the model has no missing-indicator term for it"
+	}
+	return locErr(first, name, fmt.Errorf("%d rows in this batch are missing (null or NaN), the first here; %s", count, why))
 }
 
 func (enc *Encoder) encodeNumeric(c *binding, arr arrow.Array, b *Batch, locErr locErrFunc) error {
@@ -481,7 +507,7 @@ func (enc *Encoder) encodeNumeric(c *binding, arr arrow.Array, b *Batch, locErr 
 		return nil
 	}
 	if c.miss < 0 {
-		return missingErr(locErr, c.name, count, first)
+		return enc.missingErr(locErr, c.name, count, first)
 	}
 	ind := b.X[c.miss]
 	for i := first; i < len(x); i++ {
@@ -535,7 +561,7 @@ func (enc *Encoder) encodeCategorical(c *binding, arr arrow.Array, b *Batch, loc
 	}
 	if nMiss > 0 {
 		if c.miss < 0 {
-			return missingErr(locErr, c.name, nMiss, firstMiss)
+			return enc.missingErr(locErr, c.name, nMiss, firstMiss)
 		}
 		b.MissingImputed[c.name] += int64(nMiss)
 	}

@@ -281,3 +281,63 @@ func TestBindBoolTreatmentAndStrings(t *testing.T) {
 		t.Fatal("bad unseen policy accepted")
 	}
 }
+
+// BenchmarkEncode: one 65536-row batch with a column of each kind.
+func BenchmarkEncode(b *testing.B) {
+	mem := memory.NewGoAllocator()
+	const n = 1 << 16
+	regs := []string{"n", "s", "e", "w", "mars"}
+	var t, age, inc, reg, vip, code []any
+	for i := range n {
+		t = append(t, i%2)
+		age = append(age, 20+i%50)
+		inc = append(inc, float64(i%1000)/7)
+		reg = append(reg, regs[i%4])
+		vip = append(vip, i%3 == 0)
+		code = append(code, []int{3, 7}[i%2])
+	}
+	rec := mkBatch(b, mem,
+		col{"t", arrow.PrimitiveTypes.Int64, t}, col{"age", arrow.PrimitiveTypes.Int64, age},
+		col{"inc", arrow.PrimitiveTypes.Float64, inc}, col{"reg", dictString, reg},
+		col{"vip", arrow.FixedWidthTypes.Boolean, vip}, col{"code", arrow.PrimitiveTypes.Int16, code})
+	defer rec.Release()
+	enc, err := testEncoding().Bind(rec.Schema(), "b", false, UnseenError)
+	if err != nil {
+		b.Fatal(err)
+	}
+	var batch Batch
+	b.SetBytes(n) // one "byte" per row: MB/s reads as million rows per second
+	b.ReportAllocs()
+	for b.Loop() {
+		if err := enc.Encode(rec, pipeline.Location{File: "b"}, &batch); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
+
+func TestEncodeSchemaDrift(t *testing.T) {
+	mem := memory.NewGoAllocator()
+	e := &Encoding{
+		Treatment: Treatment{Column: "t", Type: "int64", TreatedValue: "1", ControlValue: "0"},
+		Columns:   []ColumnSpec{{Name: "x", Type: "float64", Kind: KindNumeric}},
+		Missing:   MissingIndicator,
+	}
+	a := mkBatch(t, mem, col{"t", arrow.PrimitiveTypes.Int64, anys(1, 0)}, col{"x", arrow.PrimitiveTypes.Float64, anys(1.0, nil)})
+	b := mkBatch(t, mem, col{"x", arrow.PrimitiveTypes.Float64, anys(1.0, 2.0)}, col{"t", arrow.PrimitiveTypes.Int64, anys(1, 0)})
+	defer a.Release()
+	defer b.Release()
+	enc, err := e.Bind(a.Schema(), "f", false, UnseenError)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var batch Batch
+	// x had no missing values at fit, so there is no indicator term for it.
+	err = enc.Encode(a, pipeline.Location{File: "f"}, &batch)
+	if err == nil || !strings.Contains(err.Error(), "no missing values in the fit sample") {
+		t.Fatalf("error %v", err)
+	}
+	err = enc.Encode(b, pipeline.Location{File: "f"}, &batch)
+	if err == nil || !strings.Contains(err.Error(), "schema differs") {
+		t.Fatalf("error %v", err)
+	}
+}

@@ -40,8 +40,8 @@ func ReadSample(ctx context.Context, src pipeline.Source, opt SampleOptions) (*F
 	if opt.Treatment == "" {
 		return nil, errors.New("no treatment column given")
 	}
-	if opt.SampleRows < 0 {
-		return nil, fmt.Errorf("sample size %d is negative", opt.SampleRows)
+	if opt.SampleRows < 0 || opt.SampleRows > math.MaxInt32 {
+		return nil, fmt.Errorf("sample size %d is outside 0…%d", opt.SampleRows, math.MaxInt32)
 	}
 	if err := checkNames(opt); err != nil {
 		return nil, err
