@@ -151,7 +151,7 @@ func expandArg(arg string) ([]Input, error) {
 		f, ok := FormatOf(arg)
 		if !ok {
 			if f, err = sniff(arg); err != nil {
-				return nil, err
+				return nil, fmt.Errorf("input %q: %w", arg, err)
 			}
 		}
 		return []Input{{Path: arg, Rel: filepath.Base(arg), Format: f, Size: info.Size()}}, nil
@@ -300,13 +300,13 @@ func globRoot(pattern string) string {
 func sniff(path string) (Format, error) {
 	f, err := os.Open(path)
 	if err != nil {
-		return 0, fmt.Errorf("input %q: %w", path, err)
+		return 0, err
 	}
 	defer f.Close()
 	var head [8]byte
 	n, err := io.ReadFull(f, head[:])
 	if err != nil && !errors.Is(err, io.ErrUnexpectedEOF) && !errors.Is(err, io.EOF) {
-		return 0, fmt.Errorf("input %q: %w", path, err)
+		return 0, err
 	}
 	b := head[:n]
 	switch {
@@ -322,5 +322,5 @@ func sniff(path string) (Format, error) {
 		exts = append(exts, e)
 	}
 	sort.Strings(exts)
-	return 0, fmt.Errorf("input %q: unknown format (extension is not one of %s, and the file starts with neither PAR1 nor ARROW1)", path, strings.Join(exts, " "))
+	return 0, fmt.Errorf("unknown format (extension is not one of %s, and the file starts with neither PAR1 nor ARROW1)", strings.Join(exts, " "))
 }

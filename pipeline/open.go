@@ -63,10 +63,24 @@ type MetadataSource interface {
 	Metadata() arrow.Metadata
 }
 
-// Open opens one input as a Source. Errors are *Error with File set.
+// Open opens one input as a Source. Errors are *Error with File set. An
+// Input with no Format (one not made by Expand) gets it as Expand would.
 func Open(ctx context.Context, in Input, opt SourceOptions) (Source, error) {
 	if err := ctx.Err(); err != nil {
 		return nil, At(in.Path, err)
+	}
+	if in.Format == 0 {
+		f, ok := FormatOf(in.Path)
+		switch {
+		case in.Path == Stdin:
+			f = FormatArrowStream
+		case !ok:
+			var err error
+			if f, err = sniff(in.Path); err != nil {
+				return nil, locate(err, in.Path, -1, "")
+			}
+		}
+		in.Format = f
 	}
 	p := newProjection(in, opt)
 	var (

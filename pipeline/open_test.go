@@ -263,3 +263,23 @@ func TestOpenMissingFile(t *testing.T) {
 		}
 	}
 }
+
+func TestOpenWithoutFormat(t *testing.T) {
+	mem := memory.NewCheckedAllocator(memory.NewGoAllocator())
+	defer mem.AssertSize(t, 0)
+	dir := t.TempDir()
+	rec := sampleRecord(memory.NewGoAllocator(), 0, 5)
+	defer rec.Release()
+	pq := filepath.Join(dir, "a.parquet")
+	writeParquet(t, pq, sampleSchema, 10, rec)
+	noext := filepath.Join(dir, "blob")
+	writeIPC(t, noext, sampleSchema, false, rec)
+	for _, path := range []string{pq, noext} {
+		src, err := Open(context.Background(), Input{Path: path}, SourceOptions{Alloc: mem})
+		if err != nil {
+			t.Fatal(err)
+		}
+		readAll(t, src, rec)
+		src.Close()
+	}
+}
