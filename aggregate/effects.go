@@ -181,8 +181,8 @@ type block struct {
 
 var hajekTerms = []ratio{{1, 0, 1}, {-1, 2, 3}}
 
-// blocks lists the estimators; blocks()[k].cross is filled in by init-free
-// computation in blockTable.
+// blockTable lists the estimators, augmented ones last, with each block's
+// offset into Cross.
 func blockTable() []block {
 	bs := []block{
 		{score.ATE, EstimatorIPW, cIPWATE, 2, []ratio{{1, 0, 1}}, false, 0},
@@ -264,7 +264,7 @@ func (a *Effects) Add(b *fit.Batch, s *score.Scores) {
 // AddWith is Add with the caller's scratch, which must not be in use by
 // another goroutine.
 func (a *Effects) AddWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch) {
-	if a == nil || b == nil || s == nil || b.Y == nil || sc == nil {
+	if a == nil || b == nil || s == nil || b.Y == nil || sc == nil || a.Check() != nil {
 		return
 	}
 	n := min(b.N, len(b.T), len(b.Y), len(s.E), len(s.W), len(s.InSupport))
@@ -495,14 +495,29 @@ var effectBlocks = blockTable()
 // finite is false for NaN and ±Inf.
 func finite(x float64) bool { return math.Abs(x) <= math.MaxFloat64 }
 
+// Check reports whether a state (e.g. one read back from JSON) has the
+// layout its configuration implies.
+func (a *Effects) Check() error {
+	if a.Layout != effectsLayout {
+		return fmt.Errorf("effects: state layout %d, this heft reads layout %d", a.Layout, effectsLayout)
+	}
+	if len(a.Sum) != nComp || len(a.Cross) != nCross || len(a.Grad) != max(a.Config.NTerms, 0)*nSlots {
+		return fmt.Errorf("effects: state has %d/%d/%d sums, want %d/%d/%d for %d terms",
+			len(a.Sum), len(a.Cross), len(a.Grad), nComp, nCross, max(a.Config.NTerms, 0)*nSlots, a.Config.NTerms)
+	}
+	return nil
+}
+
 // Merge adds o's sums into a. Both must come from the same configuration.
 func (a *Effects) Merge(o *Effects) error {
 	if o == nil {
 		return nil
 	}
-	if o.Layout != a.Layout || len(o.Sum) != len(a.Sum) || len(o.Cross) != len(a.Cross) || len(o.Grad) != len(a.Grad) {
-		return fmt.Errorf("effects: cannot merge states of different layouts (%d terms, layout %d, and %d terms, layout %d)",
-			a.Config.NTerms, a.Layout, o.Config.NTerms, o.Layout)
+	if err := a.Check(); err != nil {
+		return err
+	}
+	if err := o.Check(); err != nil {
+		return err
 	}
 	if o.Config != a.Config {
 		return fmt.Errorf("effects: cannot merge states of different runs (%+v and %+v)", a.Config, o.Config)
@@ -576,13 +591,16 @@ func (e *Estimate) UnmarshalJSON(b []byte) error {
 
 // Estimates returns estimand → estimator → Estimate for every estimand and
 // the estimators defined for it: no "ipw" for overlap, "aipw" only with
-// outcome models. m supplies the coefficient covariances of the second
-// standard error; with m nil, or a covariance missing or of the wrong size,
-// SEWithModelUncertainty is NaN.
+// outcome models (none at all for a state that fails Check). m supplies the
+// coefficient covariances of the second standard error; with m nil, or a
+// covariance missing or of the wrong size, SEWithModelUncertainty is NaN.
 func (a *Effects) Estimates(m *fit.Model) map[string]map[string]Estimate {
 	out := make(map[string]map[string]Estimate, len(score.Estimands))
 	for _, est := range score.Estimands {
 		out[est] = make(map[string]Estimate, 3)
+	}
+	if a.Check() != nil {
+		return out
 	}
 	p := a.Config.NTerms
 	var covB, cov1, cov0 [][]float64

@@ -419,3 +419,22 @@ func BenchmarkEffectsAdd(bm *testing.B) {
 	}
 	bm.ReportMetric(float64(n)*float64(iters)/bm.Elapsed().Seconds(), "rows/s")
 }
+
+// TestEffectsCorruptState: a state whose sums do not fit its configuration
+// is refused by Merge and ignored by Add and Estimates, never a panic.
+func TestEffectsCorruptState(t *testing.T) {
+	cfg := EffectsConfig{Policy: score.Policy{Estimand: score.ATE}, NTerms: 2}
+	var bad Effects
+	if err := json.Unmarshal([]byte(`{"config":{"policy":{"estimand":"ate","stabilize":false},"n_terms":2},"layout":1,"sum":[{"s":1,"c":0}]}`), &bad); err != nil {
+		t.Fatal(err)
+	}
+	if err := NewEffects(cfg).Merge(&bad); err == nil {
+		t.Error("merged a corrupt state")
+	}
+	b := &fit.Batch{N: 1, X: [][]float64{{0.5}}, T: []int8{1}, Y: []float64{1}}
+	s := &score.Scores{N: 1, E: []float64{0.5}, W: []float64{2}, InSupport: []bool{true}}
+	bad.Add(b, s)
+	if got := bad.Estimates(nil); len(got[score.ATE]) != 0 {
+		t.Errorf("estimates from a corrupt state: %v", got)
+	}
+}
