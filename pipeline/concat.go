@@ -15,8 +15,9 @@ type concatSource struct {
 	opt    SourceOptions
 	schema *arrow.Schema
 	meta   arrow.Metadata
-	i      int    // index of cur in ins
-	cur    Source // nil once all are read or after an error
+	parts  []string // the first input's partition columns
+	i      int      // index of cur in ins
+	cur    Source   // nil once all are read or after an error
 	rec    arrow.RecordBatch
 	err    error
 }
@@ -58,6 +59,9 @@ func Concat(ctx context.Context, ins []Input, opt SourceOptions) (Source, error)
 		}
 	}
 	s := &concatSource{ins: ins, opt: opt, cur: first}
+	if ps, ok := first.(PartitionedSource); ok {
+		s.parts = ps.PartitionColumns()
+	}
 	if m, ok := first.(MetadataSource); ok {
 		s.meta = m.Metadata()
 	}
@@ -106,6 +110,7 @@ func (s *concatSource) Schema() *arrow.Schema          { return s.schema }
 func (s *concatSource) RecordBatch() arrow.RecordBatch { return s.rec }
 func (s *concatSource) Err() error                     { return s.err }
 func (s *concatSource) Metadata() arrow.Metadata       { return s.meta }
+func (s *concatSource) PartitionColumns() []string     { return s.parts }
 
 func (s *concatSource) Location() Location {
 	if s.cur == nil {

@@ -63,6 +63,13 @@ type MetadataSource interface {
 	Metadata() arrow.Metadata
 }
 
+// PartitionedSource is a Source that appended hive partition columns; they
+// are the last len(PartitionColumns()) columns of its schema, in this order.
+// Sources without partition columns need not implement it.
+type PartitionedSource interface {
+	PartitionColumns() []string
+}
+
 // Open opens one input as a Source. Errors are *Error with File set. An
 // Input with no Format (one not made by Expand) gets it as Expand would.
 func Open(ctx context.Context, in Input, opt SourceOptions) (Source, error) {
@@ -226,6 +233,14 @@ func newPartitioned(src Source, parts []Partition, mem memory.Allocator) *partit
 }
 
 func (p *partitioned) Schema() *arrow.Schema { return p.schema }
+
+func (p *partitioned) PartitionColumns() []string {
+	out := make([]string, len(p.parts))
+	for i, pt := range p.parts {
+		out[i] = pt.Key
+	}
+	return out
+}
 
 func (p *partitioned) Next(ctx context.Context) bool {
 	p.release()

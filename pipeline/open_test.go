@@ -126,6 +126,9 @@ func TestPartitionColumnsKeepFileColumn(t *testing.T) {
 	if got, want := names(src.Schema()), "i32,i64,f32,f64,b,s,d,region"; got != want {
 		t.Fatalf("columns %s, want %s", got, want)
 	}
+	if ps, ok := src.(PartitionedSource); !ok || strings.Join(ps.PartitionColumns(), ",") != "region" {
+		t.Errorf("PartitionColumns reports %v", src)
+	}
 	if !src.Next(context.Background()) {
 		t.Fatal(src.Err())
 	}
