@@ -10,6 +10,7 @@ import (
 
 	"gonum.org/v1/gonum/blas"
 	"gonum.org/v1/gonum/blas/blas64"
+	"gonum.org/v1/gonum/floats"
 	"gonum.org/v1/gonum/mat"
 )
 
@@ -46,6 +47,9 @@ type stdDesign struct {
 	konst []int     // indices of constant terms in Design.Cols
 	sd    []float64 // per Design column, 0 for constant ones
 	means []float64 // per Design column
+	// ranges holds per Design column min and max among y = 0, then among
+	// y = 1 (logistic fits only).
+	ranges [][4]float64
 }
 
 func (d *stdDesign) p() int { return 1 + len(d.cols) }
@@ -81,10 +85,15 @@ func checkInputs(X Design, y []float64, terms []string) error {
 }
 
 // standardize computes each term's mean and sample SD (two passes, for
-// accuracy) and checks that every value is finite.
-func standardize(ctx context.Context, X Design, terms []string) (*stdDesign, error) {
+// accuracy) and checks that every value is finite. With a 0/1 outcome y it
+// also records each term's range per outcome class for the separation
+// screen, in the same pass.
+func standardize(ctx context.Context, X Design, terms []string, y []float64) (*stdDesign, error) {
 	k := len(X.Cols)
 	d := &stdDesign{n: X.N, sd: make([]float64, k), means: make([]float64, k)}
+	if y != nil {
+		d.ranges = make([][4]float64, k)
+	}
 	errs := make([]error, k)
 	var next atomic.Int64
 	var wg sync.WaitGroup
@@ -96,12 +105,26 @@ func standardize(ctx context.Context, X Design, terms []string) (*stdDesign, err
 					return
 				}
 				var s float64
+				lo := [2]float64{math.Inf(1), math.Inf(1)}
+				hi := [2]float64{math.Inf(-1), math.Inf(-1)}
 				for i, v := range X.Cols[j] {
 					if math.IsNaN(v) || math.IsInf(v, 0) {
 						errs[j] = &FitError{Reason: ReasonNonFinite, Terms: []string{terms[j+1]}, Detail: fmt.Sprintf("%v at row %d", v, i)}
 						break
 					}
 					s += v
+					if y != nil {
+						c := int(y[i]) & 1
+						if v < lo[c] {
+							lo[c] = v
+						}
+						if v > hi[c] {
+							hi[c] = v
+						}
+					}
+				}
+				if y != nil {
+					d.ranges[j] = [4]float64{lo[0], hi[0], lo[1], hi[1]}
 				}
 				if errs[j] != nil {
 					continue
@@ -186,13 +209,15 @@ type crossprod struct {
 	p      int
 	chunkH [][]float64
 	chunkG [][]float64
+	chunkS []float64
 	H      []float64 // p×p row-major, both triangles
 	G      []float64
+	S      float64 // the sum of fill's results
 }
 
 func newCrossprod(n, p int) *crossprod {
 	nc := (n + chunkRows - 1) / chunkRows
-	cp := &crossprod{p: p, chunkH: make([][]float64, nc), chunkG: make([][]float64, nc), H: make([]float64, p*p), G: make([]float64, p)}
+	cp := &crossprod{p: p, chunkH: make([][]float64, nc), chunkG: make([][]float64, nc), chunkS: make([]float64, nc), H: make([]float64, p*p), G: make([]float64, p)}
 	for c := range nc {
 		cp.chunkH[c] = make([]float64, p*p)
 		cp.chunkG[c] = make([]float64, p)
@@ -200,13 +225,17 @@ func newCrossprod(n, p int) *crossprod {
 	return cp
 }
 
-// fillFunc writes, for rows lo..hi, the square root of each row's weight
-// into sw and its working residual into r.
-type fillFunc func(lo, hi int, sw, r []float64)
+// fillFunc writes, for the block of rows lo..hi, the square root of each
+// row's weight into sw and its working residual into r, and returns a
+// per-row quantity summed over the rows (the log-likelihood) or 0. Row a
+// of z (stride blockRows) already holds the standardized term z_a of the
+// block for a = 1…p−1, so the linear predictor can be formed from it.
+type fillFunc func(lo, hi int, z []float64, sw, r []float64) float64
 
 // compute sets H = Σ w_i z_i z_iᵀ and G = Σ r_i z_i (z_i with the intercept
-// 1 first), without materializing Z: per block, the rows sqrt(w)·z go into
-// a p×blockRows scratch and a symmetric rank-k update adds them to H.
+// 1 first), without materializing Z: per block, the rows z go into a
+// p×blockRows scratch, are scaled by sqrt(w), and a symmetric rank-k
+// update adds them to H.
 func (cp *crossprod) compute(ctx context.Context, d *stdDesign, fill fillFunc) error {
 	p := cp.p
 	err := forChunks(ctx, d.n, func(c, lo, hi int, s *scratch) {
@@ -214,51 +243,43 @@ func (cp *crossprod) compute(ctx context.Context, d *stdDesign, fill fillFunc) e
 		H, G := cp.chunkH[c], cp.chunkG[c]
 		clear(H)
 		clear(G)
+		var S float64
 		for b := lo; b < hi; b += blockRows {
 			e := min(hi, b+blockRows)
 			m := e - b
-			sw, r := s.sw[:m], s.r[:m]
-			fill(b, e, sw, r)
-			copy(s.s[:m], sw)
-			G[0] += sum4(r)
 			for a, col := range d.cols {
 				x := col[b:e]
 				mu, iv := d.mean[a], d.inv[a]
-				row := s.s[(a+1)*blockRows : (a+1)*blockRows+m]
-				var g0, g1, g2, g3 float64
-				i := 0
-				for ; i+4 <= m; i += 4 {
-					z0 := (x[i] - mu) * iv
-					z1 := (x[i+1] - mu) * iv
-					z2 := (x[i+2] - mu) * iv
-					z3 := (x[i+3] - mu) * iv
-					g0 += z0 * r[i]
-					g1 += z1 * r[i+1]
-					g2 += z2 * r[i+2]
-					g3 += z3 * r[i+3]
-					row[i] = z0 * sw[i]
-					row[i+1] = z1 * sw[i+1]
-					row[i+2] = z2 * sw[i+2]
-					row[i+3] = z3 * sw[i+3]
+				row := s.s[(a+1)*blockRows:][:len(x)]
+				for i, v := range x {
+					row[i] = (v - mu) * iv
 				}
-				for ; i < m; i++ {
-					z := (x[i] - mu) * iv
-					g0 += z * r[i]
-					row[i] = z * sw[i]
-				}
-				G[a+1] += (g0 + g1) + (g2 + g3)
 			}
+			sw, r := s.sw[:m], s.r[:m]
+			S += fill(b, e, s.s, sw, r)
+			G[0] += sum4(r)
+			for a := 1; a < p; a++ {
+				row := s.s[a*blockRows:][:m]
+				G[a] += floats.Dot(row, r)
+				for i := range row {
+					row[i] *= sw[i]
+				}
+			}
+			copy(s.s[:m], sw)
 			blas64.Syrk(blas.NoTrans, 1,
 				blas64.General{Rows: p, Cols: m, Stride: blockRows, Data: s.s},
 				1, blas64.Symmetric{Uplo: blas.Upper, N: p, Stride: p, Data: H})
 		}
+		cp.chunkS[c] = S
 	})
 	if err != nil {
 		return err
 	}
 	clear(cp.H)
 	clear(cp.G)
+	cp.S = 0
 	for c := range cp.chunkH {
+		cp.S += cp.chunkS[c]
 		for i, v := range cp.chunkH[c] {
 			cp.H[i] += v
 		}
@@ -287,28 +308,6 @@ func sum4(x []float64) float64 {
 		s0 += x[i]
 	}
 	return (s0 + s1) + (s2 + s3)
-}
-
-// linearPredictor writes η_i = γ_0 + Σ_a γ_a z_ia for rows lo..hi into eta.
-// The centred form keeps precision when a term's mean is large.
-func (d *stdDesign) linearPredictor(gamma []float64, lo, hi int, eta []float64) {
-	for b := lo; b < hi; b += blockRows {
-		e := min(hi, b+blockRows)
-		out := eta[b:e]
-		for i := range out {
-			out[i] = gamma[0]
-		}
-		for a, col := range d.cols {
-			c := gamma[a+1] * d.inv[a]
-			if c == 0 {
-				continue
-			}
-			mu := d.mean[a]
-			for i, v := range col[b:e] {
-				out[i] += c * (v - mu)
-			}
-		}
-	}
 }
 
 // collinear returns the coordinates (≥ 1) spanning near-null directions of

@@ -32,7 +32,7 @@ func FitLinear(ctx context.Context, X Design, y []float64, terms []string, opt G
 	if tol <= 0 {
 		tol = defaultTol
 	}
-	d, err := standardize(ctx, X, terms)
+	d, err := standardize(ctx, X, terms, nil)
 	if err != nil {
 		return nil, err
 	}
@@ -56,11 +56,12 @@ func FitLinear(ctx context.Context, X Design, y []float64, terms []string, opt G
 	}
 	ym /= float64(n)
 	cp := newCrossprod(n, p)
-	err = cp.compute(ctx, d, func(lo, hi int, sw, r []float64) {
+	err = cp.compute(ctx, d, func(lo, hi int, _, sw, r []float64) float64 {
 		for i := range sw {
 			sw[i] = 1
 			r[i] = y[lo+i] - ym
 		}
+		return 0
 	})
 	if err != nil {
 		return nil, err

@@ -4,9 +4,8 @@ import (
 	"context"
 	"fmt"
 	"math"
-	"runtime"
-	"sync"
-	"sync/atomic"
+
+	"gonum.org/v1/gonum/floats"
 )
 
 // Separation probing: rows whose fitted probability is this close to their
@@ -81,7 +80,7 @@ func fitLogistic(ctx context.Context, X Design, y []float64, terms []string, opt
 	if lambda < 0 || math.IsNaN(lambda) || math.IsInf(lambda, 0) {
 		return nil, fmt.Errorf("fit: ridge penalty %v must be a finite number ≥ 0", lambda)
 	}
-	d, err := standardize(ctx, X, terms)
+	d, err := standardize(ctx, X, terms, y)
 	if err != nil {
 		return nil, err
 	}
@@ -94,7 +93,7 @@ func fitLogistic(ctx context.Context, X Design, y []float64, terms []string, opt
 		g.Warnings = append(g.Warnings, fmt.Sprintf("constant terms %q: coefficient fixed at 0", names))
 	}
 	if screen {
-		if reason, names := screenSeparation(ctx, d, y, terms); reason != "" {
+		if reason, names := screenSeparation(d, terms); reason != "" {
 			if lambda == 0 {
 				return nil, &FitError{Reason: reason, Terms: names, Detail: "the fitted probabilities would reach 0 or 1 and the coefficients diverge"}
 			}
@@ -104,65 +103,24 @@ func fitLogistic(ctx context.Context, X Design, y []float64, terms []string, opt
 
 	p := d.p()
 	n := X.N
-	gamma := make([]float64, p)
+	nw := &newton{ctx: ctx, d: d, y: y, lambda: lambda,
+		gamma: make([]float64, p), trial: make([]float64, p), grad: make([]float64, p),
+		eta: make([]float64, n), etaTrial: make([]float64, n),
+		cp: newCrossprod(n, p), cpTrial: newCrossprod(n, p)}
 	ybar := float64(n1) / float64(n)
-	gamma[0] = math.Log(ybar / (1 - ybar))
-	eta := make([]float64, n)
-	etaNew := make([]float64, n)
-	ll, err := logLik(ctx, d, y, gamma, eta)
+	nw.gamma[0] = math.Log(ybar / (1 - ybar))
+	ll, err := nw.eval(nw.gamma, nw.eta, nw.cp)
 	if err != nil {
 		return nil, err
 	}
-	pdev := penDev(ll, gamma, lambda)
-	cp := newCrossprod(n, p)
-	fill := func(lo, hi int, sw, r []float64) {
-		for i := range sw {
-			mu, q, w := logistic(eta[lo+i])
-			sw[i] = math.Sqrt(w)
-			if y[lo+i] == 1 {
-				r[i] = q
-			} else {
-				r[i] = -mu
-			}
+	nw.ll, nw.pdev = ll, penDev(ll, nw.gamma, lambda)
+	// Here μ is constant, so Z'WZ ∝ Z'Z: an exact collinearity check.
+	if coll := collinear(nw.cp.H, p); len(coll) > 0 {
+		names := termNames(terms, d, coll)
+		if lambda == 0 {
+			return nil, &FitError{Reason: ReasonCollinear, Terms: names, Detail: "a linear combination of them is constant"}
 		}
-	}
-	grad := make([]float64, p)
-	trial := make([]float64, p)
-	// step does one Newton step with halving from gamma; it reports the
-	// step taken and whether the penalized deviance could be lowered.
-	step := func(delta []float64) (taken []float64, ok bool, err error) {
-		t := 1.0
-		for range 60 {
-			for a := range p {
-				trial[a] = gamma[a] + t*delta[a]
-			}
-			llNew, err := logLik(ctx, d, y, trial, etaNew)
-			if err != nil {
-				return nil, false, err
-			}
-			pd := penDev(llNew, trial, lambda)
-			if pd <= pdev {
-				taken = make([]float64, p)
-				for a := range p {
-					taken[a] = t * delta[a]
-				}
-				copy(gamma, trial)
-				eta, etaNew = etaNew, eta
-				ll, pdev = llNew, pd
-				return taken, true, nil
-			}
-			t /= 2
-		}
-		return nil, false, nil
-	}
-	gradient := func() []float64 {
-		for a := range p {
-			grad[a] = cp.G[a]
-			if a > 0 {
-				grad[a] -= lambda * gamma[a]
-			}
-		}
-		return grad
+		g.Warnings = append(g.Warnings, fmt.Sprintf("collinear terms %q: identified by the ridge penalty only", names))
 	}
 
 	singular := false
@@ -170,27 +128,14 @@ func fitLogistic(ctx context.Context, X Design, y []float64, terms []string, opt
 		if err := ctx.Err(); err != nil {
 			return nil, err
 		}
-		if err := cp.compute(ctx, d, fill); err != nil {
-			return nil, err
-		}
-		if g.Iterations == 0 {
-			// Here μ is constant, so Z'WZ ∝ Z'Z: an exact collinearity check.
-			if coll := collinear(cp.H, p); len(coll) > 0 {
-				names := termNames(terms, d, coll)
-				if lambda == 0 {
-					return nil, &FitError{Reason: ReasonCollinear, Terms: names, Detail: "a linear combination of them is constant"}
-				}
-				g.Warnings = append(g.Warnings, fmt.Sprintf("collinear terms %q: identified by the ridge penalty only", names))
-			}
-		}
-		delta, _, ok := solve(cp.H, p, lambda, gradient())
+		delta, _, ok := solve(nw.cp.H, p, lambda, nw.gradient())
 		if !ok {
 			singular = true
 			break
 		}
 		g.Iterations++
-		before := pdev
-		_, ok, err := step(delta)
+		before := nw.pdev
+		_, ok, err := nw.step(delta)
 		if err != nil {
 			return nil, err
 		}
@@ -199,23 +144,21 @@ func fitLogistic(ctx context.Context, X Design, y []float64, terms []string, opt
 			g.Converged = true
 			break
 		}
-		if math.Abs(before-pdev)/(math.Abs(pdev)+0.1) < tol {
+		if math.Abs(before-nw.pdev)/(math.Abs(nw.pdev)+0.1) < tol {
 			g.Converged = true
 			break
 		}
 	}
 
 	if lambda == 0 {
-		if ferr, err := probeSeparation(ctx, d, y, terms, func() []float64 { return eta }, cp, fill, gradient, step, singular); err != nil {
+		if ferr, err := probeSeparation(nw, terms, singular); err != nil {
 			return nil, err
 		} else if ferr != nil {
 			return nil, ferr
 		}
 	}
-	if err := cp.compute(ctx, d, fill); err != nil {
-		return nil, err
-	}
-	_, ch, ok := solve(cp.H, p, lambda, cp.G)
+	// nw.cp holds Z'WZ at the final coefficients.
+	_, ch, ok := solve(nw.cp.H, p, lambda, nw.cp.G)
 	if !ok {
 		return nil, &FitError{Reason: ReasonSingular, Detail: "the information matrix at the fitted coefficients is not positive definite"}
 	}
@@ -223,10 +166,10 @@ func fitLogistic(ctx context.Context, X Design, y []float64, terms []string, opt
 	if err != nil {
 		return nil, &FitError{Reason: ReasonSingular, Detail: err.Error()}
 	}
-	g.Coef, g.Cov = d.toOriginal(gamma, covG, len(X.Cols))
+	g.Coef, g.Cov = d.toOriginal(nw.gamma, covG, len(X.Cols))
 	g.SE = seFromCov(g.Cov)
-	g.LogLik = ll
-	g.Deviance = -2 * ll
+	g.LogLik = nw.ll
+	g.Deviance = -2 * nw.ll
 	if !g.Converged {
 		g.Warnings = append(g.Warnings, fmt.Sprintf("did not converge in %d iterations", g.Iterations))
 	}
@@ -241,10 +184,9 @@ func fitLogistic(ctx context.Context, X Design, y []float64, terms []string, opt
 // among them the separation is complete; otherwise the other rows leave a
 // direction unidentified (the null space of their Z'Z), which names the
 // terms. It returns a *FitError for separation, else nil.
-func probeSeparation(ctx context.Context, d *stdDesign, y []float64, terms []string, curEta func() []float64,
-	cp *crossprod, fill fillFunc, gradient func() []float64,
-	step func([]float64) ([]float64, bool, error), singular bool) (*FitError, error) {
-	if countBoundary(curEta(), y, candidateEta) == 0 {
+func probeSeparation(nw *newton, terms []string, singular bool) (*FitError, error) {
+	d, y := nw.d, nw.y
+	if countBoundary(nw.eta, y, candidateEta) == 0 {
 		if singular {
 			return &FitError{Reason: ReasonSingular, Detail: "the information matrix became singular during the fit"}, nil
 		}
@@ -255,18 +197,15 @@ func probeSeparation(ctx context.Context, d *stdDesign, y []float64, terms []str
 	diverging := false
 	before := make([]float64, d.n)
 	for range probeSteps {
-		copy(before, curEta())
-		if err := cp.compute(ctx, d, fill); err != nil {
-			return nil, err
-		}
-		delta, _, ok := solve(cp.H, p, 0, gradient())
+		copy(before, nw.eta)
+		delta, _, ok := solve(nw.cp.H, p, 0, nw.gradient())
 		if !ok {
-			delta = pseudoSolve(cp.H, p, gradient())
+			delta = pseudoSolve(nw.cp.H, p, nw.gradient())
 		}
 		if delta == nil {
 			break
 		}
-		taken, ok, err := step(delta)
+		taken, ok, err := nw.step(delta)
 		if err != nil {
 			return nil, err
 		}
@@ -289,9 +228,8 @@ func probeSeparation(ctx context.Context, d *stdDesign, y []float64, terms []str
 		}
 		// Stop once the rows short of the boundary have stopped moving:
 		// what remains is the finite part of the fit.
-		e := curEta()
 		moving := false
-		for i, v := range e {
+		for i, v := range nw.eta {
 			if !atBoundary(v, y[i], boundaryEta) && math.Abs(v-before[i]) > 1e-3 {
 				moving = true
 				break
@@ -301,29 +239,29 @@ func probeSeparation(ctx context.Context, d *stdDesign, y []float64, terms []str
 			break
 		}
 	}
-	eta := curEta()
+	eta := nw.eta
 	nb := countBoundary(eta, y, boundaryEta)
 	var null []int
 	if nb > 0 && nb < d.n {
 		// Z'Z over the rows not at the boundary.
-		unit := func(lo, hi int, sw, r []float64) {
+		unit := func(lo, hi int, _, sw, r []float64) float64 {
 			for i := range sw {
-				e := eta[lo+i]
-				if atBoundary(e, y[lo+i], boundaryEta) {
+				if atBoundary(eta[lo+i], y[lo+i], boundaryEta) {
 					sw[i] = 0
 				} else {
 					sw[i] = 1
 				}
 				r[i] = 0
 			}
+			return 0
 		}
 		m := newCrossprod(d.n, p)
-		if err := m.compute(ctx, d, unit); err != nil {
+		if err := m.compute(nw.ctx, d, unit); err != nil {
 			return nil, err
 		}
 		null = collinear(m.H, p)
 	}
-	if !diverging && len(null) == 0 && !(nb == d.n) {
+	if !diverging && len(null) == 0 && nb != d.n {
 		if singular {
 			return &FitError{Reason: ReasonSingular, Detail: "the information matrix became singular during the fit"}, nil
 		}
@@ -339,6 +277,94 @@ func probeSeparation(ctx context.Context, d *stdDesign, y []float64, terms []str
 	}
 	return &FitError{Reason: reason, Terms: termNames(terms, d, coords),
 		Detail: fmt.Sprintf("%d of %d rows are fitted within 3e-7 of their outcome and the coefficients diverge", nb, d.n)}, nil
+}
+
+// newton is the state of the Newton iteration: coefficients, their linear
+// predictor, log-likelihood and Z'WZ, Z'(y−μ), with spare buffers for a
+// trial point so that a rejected step costs no copying.
+type newton struct {
+	ctx           context.Context
+	d             *stdDesign
+	y             []float64
+	lambda        float64
+	gamma, trial  []float64
+	eta, etaTrial []float64
+	cp, cpTrial   *crossprod
+	ll, pdev      float64
+	grad          []float64
+}
+
+// eval computes, in one pass over the rows, η at gamma (into eta), the
+// log-likelihood, and the weighted cross products at that point (into cp).
+func (nw *newton) eval(gamma, eta []float64, cp *crossprod) (float64, error) {
+	d, y := nw.d, nw.y
+	err := cp.compute(nw.ctx, d, func(lo, hi int, z, sw, r []float64) float64 {
+		e := eta[lo:hi]
+		for i := range e {
+			e[i] = gamma[0]
+		}
+		for a := 1; a < len(gamma); a++ {
+			if gamma[a] != 0 {
+				floats.AddScaled(e, gamma[a], z[a*blockRows:][:len(e)])
+			}
+		}
+		var s float64
+		for i, v := range e {
+			mu, q := logistic(v)
+			sw[i] = math.Sqrt(mu * q)
+			// The log of the observed outcome's probability, which
+			// logistic gives to full relative precision.
+			if y[lo+i] == 1 {
+				r[i] = q
+				s += math.Log(mu)
+			} else {
+				r[i] = -mu
+				s += math.Log(q)
+			}
+		}
+		return s
+	})
+	return cp.S, err
+}
+
+// gradient is Z'(y−μ) − λDγ at the current point.
+func (nw *newton) gradient() []float64 {
+	for a, v := range nw.cp.G {
+		nw.grad[a] = v
+		if a > 0 {
+			nw.grad[a] -= nw.lambda * nw.gamma[a]
+		}
+	}
+	return nw.grad
+}
+
+// step moves along delta, halving it while the penalized deviance would
+// increase; it returns the step taken, or ok = false when no step of at
+// least 2^−60·delta lowers the deviance.
+func (nw *newton) step(delta []float64) (taken []float64, ok bool, err error) {
+	t := 1.0
+	for range 60 {
+		for a := range delta {
+			nw.trial[a] = nw.gamma[a] + t*delta[a]
+		}
+		ll, err := nw.eval(nw.trial, nw.etaTrial, nw.cpTrial)
+		if err != nil {
+			return nil, false, err
+		}
+		if pd := penDev(ll, nw.trial, nw.lambda); pd <= nw.pdev {
+			taken = make([]float64, len(delta))
+			for a := range delta {
+				taken[a] = t * delta[a]
+			}
+			nw.gamma, nw.trial = nw.trial, nw.gamma
+			nw.eta, nw.etaTrial = nw.etaTrial, nw.eta
+			nw.cp, nw.cpTrial = nw.cpTrial, nw.cp
+			nw.ll, nw.pdev = ll, pd
+			return taken, true, nil
+		}
+		t /= 2
+	}
+	return nil, false, nil
 }
 
 // largest returns the coordinates a ≥ 1 with |v_a| > rel·max_b≥1 |v_b|.
@@ -372,26 +398,18 @@ func atBoundary(eta, y, bound float64) bool {
 	return (eta > bound && y == 1) || (eta < -bound && y == 0)
 }
 
-// logistic returns μ = 1/(1+e^−η), 1−μ and μ(1−μ) without cancellation.
-func logistic(eta float64) (mu, q, w float64) {
+// logistic returns μ = 1/(1+e^−η) and 1−μ, each to full relative
+// precision, from one exponential.
+func logistic(eta float64) (mu, q float64) {
+	e := math.Exp(-math.Abs(eta))
 	if eta >= 0 {
-		e := math.Exp(-eta)
 		mu = 1 / (1 + e)
 		q = e * mu
 	} else {
-		e := math.Exp(eta)
 		q = 1 / (1 + e)
 		mu = e * q
 	}
-	return mu, q, mu * q
-}
-
-// softplus is log(1+e^η) without overflow.
-func softplus(eta float64) float64 {
-	if eta > 0 {
-		return eta + math.Log1p(math.Exp(-eta))
-	}
-	return math.Log1p(math.Exp(eta))
+	return mu, q
 }
 
 func penDev(ll float64, gamma []float64, lambda float64) float64 {
@@ -406,64 +424,22 @@ func penDev(ll float64, gamma []float64, lambda float64) float64 {
 	return pd
 }
 
-// logLik writes η for gamma into eta and returns the Bernoulli
-// log-likelihood Σ y_i η_i − log(1+e^η_i), summed per chunk in order.
-func logLik(ctx context.Context, d *stdDesign, y, gamma, eta []float64) (float64, error) {
-	parts := make([]float64, (d.n+chunkRows-1)/chunkRows)
-	err := forChunks(ctx, d.n, func(c, lo, hi int, _ *scratch) {
-		d.linearPredictor(gamma, lo, hi, eta)
-		var s float64
-		for i := lo; i < hi; i++ {
-			e := eta[i]
-			s += y[i]*e - softplus(e)
-		}
-		parts[c] = s
-	})
-	if err != nil {
-		return 0, err
-	}
-	var s float64
-	for _, v := range parts {
-		s += v
-	}
-	return s, nil
-}
-
 // screenSeparation finds terms that alone separate the outcome: every
 // treated row on one side of a value and every control row on the other
 // (complete), or touching it (quasi-complete), which catches the common
 // case of a level seen in one arm only before any iteration.
-func screenSeparation(ctx context.Context, d *stdDesign, y []float64, terms []string) (string, []string) {
-	k := len(d.cols)
-	kind := make([]int, k) // 0 none, 1 quasi, 2 complete
-	var next atomic.Int64
-	var wg sync.WaitGroup
-	for range min(runtime.GOMAXPROCS(0), max(k, 1)) {
-		wg.Go(func() {
-			for {
-				a := int(next.Add(1) - 1)
-				if a >= k || ctx.Err() != nil {
-					return
-				}
-				lo0, hi0 := math.Inf(1), math.Inf(-1)
-				lo1, hi1 := math.Inf(1), math.Inf(-1)
-				for i, v := range d.cols[a] {
-					if y[i] == 1 {
-						lo1, hi1 = math.Min(lo1, v), math.Max(hi1, v)
-					} else {
-						lo0, hi0 = math.Min(lo0, v), math.Max(hi0, v)
-					}
-				}
-				switch {
-				case hi0 < lo1 || hi1 < lo0:
-					kind[a] = 2
-				case hi0 == lo1 || hi1 == lo0:
-					kind[a] = 1
-				}
-			}
-		})
+func screenSeparation(d *stdDesign, terms []string) (string, []string) {
+	kind := make([]int, len(d.cols)) // 0 none, 1 quasi, 2 complete
+	for a, j := range d.idx {
+		r := d.ranges[j]
+		lo0, hi0, lo1, hi1 := r[0], r[1], r[2], r[3]
+		switch {
+		case hi0 < lo1 || hi1 < lo0:
+			kind[a] = 2
+		case hi0 == lo1 || hi1 == lo0:
+			kind[a] = 1
+		}
 	}
-	wg.Wait()
 	var complete, quasi []string
 	for a, kd := range kind {
 		switch kd {
