@@ -1,0 +1,66 @@
+package aggregate
+
+import (
+	"fmt"
+	"math/rand/v2"
+	"testing"
+
+	"github.com/heft-project/heft/fit"
+	"github.com/heft-project/heft/score"
+)
+
+// benchInput is an invented 65536-row batch of 20 terms (demo data).
+func benchInput(b *testing.B) (*State, *fit.Batch, *score.Scores) {
+	const n, p = 65536, 20
+	rng := rand.New(rand.NewPCG(3, 4))
+	terms := []string{"intercept"}
+	ref := fit.Reference{PropensityEdges: make([]float64, 51), PropensityDeciles: []float64{.1, .2, .3, .4, .5, .6, .7, .8, .9},
+		DecileCounts: []float64{1, 1, 1, 1, 1, 1, 1, 1, 1, 1}}
+	for k := range ref.PropensityEdges {
+		ref.PropensityEdges[k] = float64(k) / 50
+	}
+	bt := &fit.Batch{N: n, X: make([][]float64, p), T: make([]int8, n)}
+	sc := &score.Scores{N: n, E: make([]float64, n), W: make([]float64, n), WValid: make([]bool, n), InSupport: make([]bool, n)}
+	for j := 0; j < p; j++ {
+		name := fmt.Sprintf("x%d", j+1)
+		terms = append(terms, name)
+		ref.Terms = append(ref.Terms, fit.TermReference{Term: name, Edges: []float64{-1.28, -.84, -.52, -.25, 0, .25, .52, .84, 1.28}, SD: 1})
+		bt.X[j] = make([]float64, n)
+		for i := range bt.X[j] {
+			bt.X[j][i] = rng.NormFloat64()
+		}
+	}
+	for i := 0; i < n; i++ {
+		e := 0.05 + 0.9*rng.Float64()
+		bt.T[i] = 0
+		if rng.Float64() < e {
+			bt.T[i] = 1
+		}
+		sc.E[i], sc.W[i], sc.WValid[i], sc.InSupport[i] = e, score.Weight(score.ATE, bt.T[i], e), true, true
+	}
+	m := &fit.Model{Propensity: fit.GLM{Family: fit.FamilyBinomial, Terms: terms, Coef: make([]float64, p+1)}, Reference: ref, Checksum: "sha256:bench"}
+	s, err := New(Config{Model: m, Policy: score.Policy{Estimand: score.ATE}}, nil)
+	if err != nil {
+		b.Fatal(err)
+	}
+	return s, bt, sc
+}
+
+// BenchmarkStateAdd measures Add on one 65536-row, 20-term batch without
+// an outcome (balance, overlap, drift), the way the engine calls it: a
+// fresh State per batch, merged into the run's.
+func BenchmarkStateAdd(b *testing.B) {
+	run, bt, sc := benchInput(b)
+	b.ReportAllocs()
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		s := run.Empty()
+		if err := s.Add(nil, bt, sc); err != nil {
+			b.Fatal(err)
+		}
+		if err := run.Merge(s); err != nil {
+			b.Fatal(err)
+		}
+	}
+	b.ReportMetric(float64(bt.N)*float64(b.N)/b.Elapsed().Seconds(), "rows/s")
+}
