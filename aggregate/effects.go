@@ -135,17 +135,20 @@ type Effects struct {
 // point over at most blockRows rows) added into the compensated sums.
 const blockRows = 128
 
-// EffectsScratch is the per-block working memory of Add, about 70 KB. It
-// holds no results, so one scratch per goroutine can serve any number of
-// Effects (e.g. one per segment) through AddWith.
+// EffectsScratch is the per-block working memory of Add, about 70 KB at
+// full size. It holds no results, so one scratch per goroutine can serve any
+// number of Effects (e.g. one per segment) through AddWith.
 type EffectsScratch struct {
-	v []float64 // nComp × blockRows, component-major
-	q []float64 // nSlots × blockRows, slot-major
+	rows int       // rows per block, at most blockRows
+	v    []float64 // nComp × rows, component-major
+	q    []float64 // nSlots × rows, slot-major
 }
 
-// NewEffectsScratch allocates a scratch.
-func NewEffectsScratch() *EffectsScratch {
-	return &EffectsScratch{v: make([]float64, nComp*blockRows), q: make([]float64, nSlots*blockRows)}
+// NewEffectsScratch allocates a full-size scratch.
+func NewEffectsScratch() *EffectsScratch { return newScratch(blockRows) }
+
+func newScratch(rows int) *EffectsScratch {
+	return &EffectsScratch{rows: rows, v: make([]float64, nComp*rows), q: make([]float64, nSlots*rows)}
 }
 
 // Components: each estimator's per-row values v, at a fixed offset.
@@ -252,20 +255,29 @@ func (a *Effects) logisticOutcome() bool {
 // Add folds in one scored batch (see the type's doc for the rows used). It
 // allocates its scratch on the first call and nothing after.
 func (a *Effects) Add(b *fit.Batch, s *score.Scores) {
-	if a == nil {
+	if a == nil || b == nil {
 		return
 	}
-	if a.own == nil {
-		a.own = NewEffectsScratch()
+	// An accumulator's own scratch grows with its batches (powers of two up
+	// to blockRows), so many small ones, one per segment, stay small.
+	if n := b.N; a.own == nil || (a.own.rows < n && a.own.rows < blockRows) {
+		rows := 8
+		for rows < n && rows < blockRows {
+			rows *= 2
+		}
+		a.own = newScratch(rows)
 	}
 	a.AddWith(b, s, a.own)
 }
 
-// AddWith is Add with the caller's scratch, which must not be in use by
-// another goroutine.
+// AddWith is Add with the caller's scratch (a zero EffectsScratch is fine),
+// which must not be in use by another goroutine.
 func (a *Effects) AddWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch) {
 	if a == nil || b == nil || s == nil || b.Y == nil || sc == nil || a.Check() != nil {
 		return
+	}
+	if sc.rows <= 0 || len(sc.v) != nComp*sc.rows || len(sc.q) != nSlots*sc.rows {
+		*sc = *NewEffectsScratch() // the zero value is ready to use
 	}
 	n := min(b.N, len(b.T), len(b.Y), len(s.E), len(s.W), len(s.InSupport))
 	if b.YValid != nil {
@@ -302,18 +314,18 @@ func (a *Effects) AddWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch) {
 	if !grad {
 		ns = 0
 	}
-	V, Q := sc.v, sc.q
+	V, Q, B := sc.v, sc.q, sc.rows
 	var v, dE, dM1, dM0 [nComp]float64
-	for lo := 0; lo < n; lo += blockRows {
-		hi := min(lo+blockRows, n)
+	for lo := 0; lo < n; lo += B {
+		hi := min(lo+B, n)
 		for i := lo; i < hi; i++ {
 			r := i - lo
 			if !a.usable(b, s, i, aug) {
 				for c := 0; c < last; c++ {
-					V[c*blockRows+r] = 0
+					V[c*B+r] = 0
 				}
 				for si := 0; si < ns; si++ {
-					Q[si*blockRows+r] = 0
+					Q[si*B+r] = 0
 				}
 				continue
 			}
@@ -381,7 +393,7 @@ func (a *Effects) AddWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch) {
 			}
 
 			for c := 0; c < last; c++ {
-				V[c*blockRows+r] = v[c]
+				V[c*B+r] = v[c]
 			}
 			if ns > 0 {
 				ge := e * (1 - e)
@@ -402,11 +414,11 @@ func (a *Effects) AddWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch) {
 					default:
 						d = g0 * dM0[sl.comp]
 					}
-					Q[si*blockRows+r] = d
+					Q[si*B+r] = d
 				}
 			}
 		}
-		a.fold(V, Q, hi-lo, lo, b.X, aug, ns)
+		a.fold(V, Q, B, hi-lo, lo, b.X, aug, ns)
 	}
 }
 
@@ -436,11 +448,12 @@ func (a *Effects) usable(b *fit.Batch, s *score.Scores, i int, aug bool) bool {
 	return ok
 }
 
-// fold adds one block of L rows (batch rows lo…lo+L−1) into the sums: each
+// fold adds one block of L rows (batch rows lo…lo+L−1, stored with stride
+// B) into the sums: each
 // a dot product over the block, so every x column is read from memory once
 // per block and the rest comes from cache.
-func (a *Effects) fold(V, Q []float64, L, lo int, X [][]float64, aug bool, ns int) {
-	col := func(buf []float64, c int) []float64 { return buf[c*blockRows : c*blockRows+L] }
+func (a *Effects) fold(V, Q []float64, B, L, lo int, X [][]float64, aug bool, ns int) {
+	col := func(buf []float64, c int) []float64 { return buf[c*B : c*B+L] }
 	k := 0
 	for _, blk := range effectBlocks {
 		if blk.augmented && !aug {

@@ -438,3 +438,41 @@ func TestEffectsCorruptState(t *testing.T) {
 		t.Errorf("estimates from a corrupt state: %v", got)
 	}
 }
+
+// TestEffectsAddWith: an own scratch that grew from small batches and a
+// shared zero-value scratch give the same sums.
+func TestEffectsAddWith(t *testing.T) {
+	fx := loadEffectsFixture(t, "att_clip_stab_cap")
+	grown := NewEffects(fx.cfg)
+	for _, k := range []int{5, 17, 40, 300} { // batches of growing size
+		for lo := 0; lo < fx.b.N; lo += k * 4 {
+			b, s := fx.rowsOf(span(lo, min(lo+k, fx.b.N)))
+			grown.Add(b, s)
+		}
+	}
+	shared := NewEffects(fx.cfg)
+	var sc EffectsScratch
+	for _, k := range []int{5, 17, 40, 300} {
+		for lo := 0; lo < fx.b.N; lo += k * 4 {
+			b, s := fx.rowsOf(span(lo, min(lo+k, fx.b.N)))
+			shared.AddWith(b, s, &sc)
+		}
+	}
+	g, h := grown.Estimates(&fx.model), shared.Estimates(&fx.model)
+	for est, m := range g {
+		for k, v := range m {
+			o := h[est][k]
+			for _, c := range [][2]float64{{v.Estimate, o.Estimate}, {v.SE, o.SE}, {v.SEWithModelUncertainty, o.SEWithModelUncertainty}} {
+				if d := relDiff(c[0], c[1]); d > 1e-12 {
+					t.Errorf("%s/%s: own scratch %v, shared %v", est, k, c[0], c[1])
+				}
+			}
+		}
+	}
+	if grown.own.rows != blockRows {
+		t.Errorf("own scratch has %d rows after a 300-row batch, want %d", grown.own.rows, blockRows)
+	}
+	if grown.Rows == 0 || grown.Rows != shared.Rows {
+		t.Fatalf("rows %d and %d", grown.Rows, shared.Rows)
+	}
+}
