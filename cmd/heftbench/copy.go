@@ -27,7 +27,7 @@ func runCopy(args []string) error {
 	fs := flag.NewFlagSet("copy", flag.ContinueOnError)
 	in := fs.String("in", "bench.parquet", "input Parquet file")
 	out := fs.String("out", "copy.parquet", "output Parquet file")
-	path := fs.String("path", "pqarrow", "pqarrow (heft's sink and engine), pqarrow-plain (pqarrow FileWriter, one goroutine), parquet-go (CopyRows), parquet-go-rg (WriteRowGroup)")
+	path := fs.String("path", "pqarrow", "pqarrow (heft's sink and engine), pqarrow-plain (pqarrow FileWriter, one goroutine), parquet-go (CopyRows), parquet-go-rg (WriteRowGroup), arrow-parquet-go (pqarrow read, parquet-go write)")
 	batch := fs.Int64("batch", 65536, "rows per batch read (pqarrow paths)")
 	readPar := fs.Bool("readpar", false, "decode the columns of a batch in parallel (pqarrow paths)")
 	workers := fs.Int("workers", 0, "pqarrow: columns encoded at once (0 = GOMAXPROCS)")
@@ -39,6 +39,7 @@ func runCopy(args []string) error {
 	noStats := fs.Bool("nostats", false, "pqarrow: no column statistics")
 	noSchema := fs.Bool("noarrowschema", false, "pqarrow: do not store the Arrow schema")
 	cpuprof := fs.String("cpuprofile", "", "write a CPU profile to this file")
+	memprof := fs.String("memprofile", "", "pqarrow: write a heap profile to this file half way through")
 	if err := fs.Parse(args); err != nil {
 		return err
 	}
@@ -61,9 +62,11 @@ func runCopy(args []string) error {
 		rows, err = copyHeft(*in, *out, *batch, *readPar, pipeline.ParquetSinkOptions{
 			RowGroupRows: *rg, Workers: *workers, Dictionary: *dict, DataPageSize: *page,
 			NoStatistics: *noStats, NoArrowSchema: *noSchema, CreatedBy: "heftbench",
-		}, pipeline.EngineOptions{Workers: *engineWorkers, QueueDepth: *depth})
+		}, pipeline.EngineOptions{Workers: *engineWorkers, QueueDepth: *depth, Progress: heapAt(*memprof, 1_000_000)})
 	case "pqarrow-plain":
 		rows, err = copyPqarrowPlain(*in, *out, *batch, *readPar, *rg)
+	case "arrow-parquet-go":
+		rows, err = copyArrowToParquetGo(*in, *out, *batch, *readPar, *rg)
 	case "parquet-go", "parquet-go-rg":
 		rows, err = copyParquetGo(*in, *out, *path == "parquet-go-rg", *rg)
 	default:
@@ -74,6 +77,25 @@ func runCopy(args []string) error {
 	}
 	fmt.Fprintf(os.Stderr, "%s: %d rows in %.3fs\n", *path, rows, time.Since(start).Seconds())
 	return nil
+}
+
+// heapAt returns a progress callback that writes a heap profile once rows
+// reach n, or nil without a file name.
+func heapAt(name string, n int64) func(int64) {
+	if name == "" {
+		return nil
+	}
+	done := false
+	return func(rows int64) {
+		if done || rows < n {
+			return
+		}
+		done = true
+		if f, err := os.Create(name); err == nil {
+			pprof.WriteHeapProfile(f)
+			f.Close()
+		}
+	}
 }
 
 // recordSource adapts a pqarrow record reader to pipeline.Source.

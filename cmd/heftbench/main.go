@@ -3,6 +3,7 @@
 //
 //	go run ./cmd/heftbench gen -out table.parquet -rows 2000000
 //	go run ./cmd/heftbench copy -in table.parquet -out copy.parquet -path pqarrow
+//	go run ./cmd/heftbench cmp -a table.parquet -b copy.parquet
 //
 // Time it as a whole process (/usr/bin/time -v) to get wall time and peak
 // RSS; copy also prints its own wall time and rows to stderr.
@@ -15,7 +16,7 @@ import (
 
 func main() {
 	if len(os.Args) < 2 {
-		fmt.Fprintln(os.Stderr, "usage: heftbench gen|copy [flags]")
+		fmt.Fprintln(os.Stderr, "usage: heftbench gen|copy|cmp [flags]")
 		os.Exit(2)
 	}
 	var err error
@@ -24,8 +25,10 @@ func main() {
 		err = runGen(os.Args[2:])
 	case "copy":
 		err = runCopy(os.Args[2:])
+	case "cmp":
+		err = runCmp(os.Args[2:])
 	default:
-		err = fmt.Errorf("unknown command %q (want gen or copy)", os.Args[1])
+		err = fmt.Errorf("unknown command %q (want gen, copy or cmp)", os.Args[1])
 	}
 	if err != nil {
 		fmt.Fprintln(os.Stderr, "heftbench:", err)
