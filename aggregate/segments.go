@@ -83,7 +83,9 @@ func (c *cell) ess(a int) float64 {
 type segment struct {
 	Values []*string `json:"values"` // per By column, null for null
 	cell
-	key string
+	key   string
+	stamp uint64 // the State's Add call that last saw this segment
+	local int    // its number within that call's batch
 }
 
 // text is the segment's values as text, NullValue for null.

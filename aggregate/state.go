@@ -107,8 +107,9 @@ type State struct {
 	Inputs     []string
 	RunSeconds float64
 
-	sh *shared
-	a  accum
+	sh    *shared
+	a     accum
+	stamp uint64 // counts Add calls, to number segments per batch
 }
 
 var _ score.Accumulator = (*State)(nil)
@@ -369,8 +370,9 @@ func (s *State) addSegments(cols []arrow.Array, b *fit.Batch, sc *score.Scores, 
 	rowSeg, idx := x.rowSeg[:n], x.idx[:n]
 	x.local = x.local[:0]
 	x.count = x.count[:0]
-	// local numbers segments in this batch; the map is consulted once per
-	// row, and the segment's own ordinal is remembered in lastLocal.
+	// local numbers the segments seen in this batch; the map is consulted
+	// once per row, and a segment remembers its number for this batch.
+	s.stamp++
 	for i := 0; i < n; i++ {
 		x.key = appendKey(x.key[:0], cols, i)
 		g, ok := s.a.seg[string(x.key)]
@@ -382,12 +384,12 @@ func (s *State) addSegments(cols []arrow.Array, b *fit.Batch, sc *score.Scores, 
 			g = &segment{Values: decodeKey(key), cell: sh.newCell(false), key: key}
 			s.a.seg[key] = g
 		}
-		l := slices.Index(x.local, g)
-		if l < 0 {
-			l = len(x.local)
+		if g.stamp != s.stamp {
+			g.stamp, g.local = s.stamp, len(x.local)
 			x.local = append(x.local, g)
 			x.count = append(x.count, 0)
 		}
+		l := g.local
 		rowSeg[i] = int32(l)
 		x.count[l]++
 	}
