@@ -22,7 +22,8 @@ const (
 
 // FitLogistic fits P(y=1|x) = 1/(1+exp(−(β0 + Σ_j β_j x_j))) by
 // Newton–Raphson, which for the canonical logit link is iteratively
-// reweighted least squares (McCullagh & Nelder 1989, §2.5, §4.4).
+// reweighted least squares (McCullagh & Nelder, Generalized Linear Models,
+// 2nd ed. 1989, ch. 2 and 4).
 //
 // The terms are standardized internally, z_j = (x_j − m_j)/s_j with s_j
 // the sample SD, and the fit runs on z. With opt.Ridge = λ > 0 it
@@ -43,9 +44,13 @@ const (
 // are unpenalized.
 //
 // Without ridge, complete or quasi-complete separation and collinear or
-// constant terms are *FitError values naming the terms. With ridge the
-// model is fitted anyway and the problem is recorded in Warnings (a
-// constant term then gets coefficient 0).
+// constant terms are *FitError values naming the terms: separation by one
+// term is found before iterating, separation by a combination of terms
+// from the rows fitted at 0/1 and the diverging Newton steps (see
+// probeSeparation); collinearity from the eigenvalues of the terms'
+// correlation matrix. With ridge the model is fitted anyway and the
+// problem is recorded in Warnings (a constant term then gets coefficient
+// 0); separation is then only seen when one term alone separates.
 func FitLogistic(ctx context.Context, X Design, y []float64, terms []string, opt GLMOptions) (*GLM, error) {
 	return fitLogistic(ctx, X, y, terms, opt, true)
 }

@@ -526,9 +526,13 @@ func BenchmarkFitLogistic1M(b *testing.B) {
 	X, y, terms := synth(1_000_000, 20, 42)
 	b.ReportAllocs()
 	b.ResetTimer()
+	var iters int
 	for b.Loop() {
-		if _, err := FitLogistic(context.Background(), X, y, terms, GLMOptions{}); err != nil {
+		g, err := FitLogistic(context.Background(), X, y, terms, GLMOptions{})
+		if err != nil {
 			b.Fatal(err)
 		}
+		iters = g.Iterations
 	}
+	b.ReportMetric(float64(iters), "iterations")
 }
