@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"slices"
 	"sort"
 	"time"
 )
@@ -35,7 +36,8 @@ var propensityQs = [...]float64{0, 0.01, 0.05, 0.25, 0.5, 0.75, 0.95, 0.99, 1}
 //
 // Memory: numeric columns without missing values are used as design
 // columns as they are; only categorical indicators and imputed columns are
-// new, and each arm's outcome design is copied in turn.
+// new, and the arms' outcome designs are copied in turn into one buffer
+// the size of the larger arm.
 func Fit(ctx context.Context, fr *Frame, opt Options) (m *Model, e []float64, t []int8, err error) {
 	if fr == nil {
 		return nil, nil, nil, errors.New("no fit sample")
@@ -189,32 +191,46 @@ func fitOutcomes(ctx context.Context, fr *Frame, X Design, t []int8, terms []str
 		fitter = FitLogistic
 	}
 	yAll := fr.Outcome.Num
+	// One set of buffers, sized for the larger arm, serves both arms in turn.
+	var nArm [2]int
+	for i, v := range yAll {
+		if !math.IsNaN(v) {
+			nArm[t[i]]++
+		}
+	}
+	size := max(nArm[0], nArm[1])
+	rows := make([]int32, 0, size)
+	y := make([]float64, size)
+	buf := make([][]float64, len(X.Cols))
+	for j := range buf {
+		buf[j] = make([]float64, size)
+	}
 	for _, arm := range []struct {
 		t    int8
 		name string
 		dst  *GLM
 	}{{1, "treated", &om.Treated}, {0, "control", &om.Control}} {
-		var rows []int
+		rows = rows[:0]
 		for i, v := range yAll {
 			if t[i] == arm.t && !math.IsNaN(v) {
-				rows = append(rows, i)
+				rows = append(rows, int32(i))
 			}
 		}
-		sub := Design{N: len(rows), Cols: make([][]float64, len(X.Cols))}
+		m := len(rows)
+		sub := Design{N: m, Cols: make([][]float64, len(X.Cols))}
 		for j, col := range X.Cols {
-			c := make([]float64, len(rows))
+			c := buf[j][:m]
 			for k, i := range rows {
 				c[k] = col[i]
 			}
 			sub.Cols[j] = c
 		}
-		y := make([]float64, len(rows))
 		for k, i := range rows {
 			y[k] = yAll[i]
 		}
-		g, err := fitter(ctx, sub, y, terms, opt)
+		g, err := fitter(ctx, sub, y[:m], terms, opt)
 		if err != nil {
-			return nil, fmt.Errorf("outcome model, %s arm (%d rows with an outcome): %w", arm.name, len(rows), err)
+			return nil, fmt.Errorf("outcome model, %s arm (%d rows with an outcome): %w", arm.name, m, err)
 		}
 		*arm.dst = *g
 	}
@@ -261,14 +277,14 @@ func diagnostics(fr *Frame, e []float64, t []int8, n1 int, missing map[string]in
 func reference(X Design, terms []string, e []float64, t []int8, n1 int) Reference {
 	r := Reference{ShareTreated: float64(n1) / float64(len(e))}
 	r.Terms = make([]TermReference, len(X.Cols))
+	var sorted []float64 // one scratch copy for every term's deciles
 	for j, col := range X.Cols {
-		tr := TermReference{Term: terms[j+1], Edges: DecileEdges(col)}
+		sorted = append(sorted[:0], col...)
+		slices.Sort(sorted)
+		tr := TermReference{Term: terms[j+1], Edges: decilesSorted(sorted)}
 		tr.Mean, tr.SD = meanSD(col, t, -1)
 		tr.MeanTreated, tr.SDTreated = meanSD(col, t, 1)
 		tr.MeanControl, tr.SDControl = meanSD(col, t, 0)
-		if tr.Edges == nil {
-			tr.Edges = []float64{}
-		}
 		r.Terms[j] = tr
 	}
 	r.PropensityEdges = make([]float64, 51)
@@ -287,6 +303,22 @@ func reference(X Design, terms []string, e []float64, t []int8, n1 int) Referenc
 		r.DecileCounts[sort.SearchFloat64s(r.PropensityDeciles, v)]++
 	}
 	return r
+}
+
+// decilesSorted is DecileEdges of a sorted column without NaN, sparing a
+// copy per term.
+func decilesSorted(s []float64) []float64 {
+	out := make([]float64, 0, 9)
+	if len(s) == 0 {
+		return out
+	}
+	for k := 1; k <= 9; k++ {
+		v := quantileSorted(s, float64(k)/10)
+		if len(out) == 0 || v > out[len(out)-1] {
+			out = append(out, v)
+		}
+	}
+	return out
 }
 
 // meanSD is the mean and the SD with n−1 (0 below two rows) of x over the
