@@ -183,7 +183,19 @@ def fixture(name, seed, cols, lin_t, y_of, kind="continuous", ridge=None):
                 arms[arm] = r
         out["outcome"] = {"kind": kind, **arms}
     else:
-        out["propensity"] = ridge_logistic(X, t, ridge)
+        prop = ridge_logistic(X, t, ridge)
+        # Cross-check the penalty scaling with statsmodels, whose objective
+        # is −ℓ/n + Σ_j α_j β_j²/2: α_j = λ s_j²/n is the same problem. Its
+        # coordinate descent stops far short of 1e-6, so it is not the
+        # reference, only a check that both solve one problem.
+        s = X[:, 1:].std(axis=0, ddof=1)
+        alpha = np.concatenate([[0.0], ridge * s * s / len(t)])
+        reg = sm.GLM(t, X, family=sm.families.Binomial()).fit_regularized(
+            alpha=alpha, L1_wt=0.0, cnvrg_tol=1e-14, maxiter=10000)
+        rel = float(np.max(np.abs(reg.params - prop["coef"]) / np.abs(prop["coef"])))
+        assert rel < 1e-2, f"statsmodels fit_regularized disagrees: {rel}"
+        prop["statsmodels_fit_regularized_max_rel_diff"] = rel
+        out["propensity"] = prop
     dump(name, out)
 
 
