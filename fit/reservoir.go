@@ -149,11 +149,22 @@ func (r *reader) setup(schema *arrow.Schema, file string) error {
 			*fc, err = newFrameColumn(f, i, kind, role, file)
 			return err
 		}
-		if c := classOf(f.Type); c != fc.cls {
+		// A numeric column may change width or become floating-point
+		// between files (CSV type inference does that); a categorical one
+		// or the treatment must keep its class.
+		c := classOf(f.Type)
+		ok := sameClass(c, fc.cls)
+		if fc.Kind == KindNumeric {
+			ok = c.numeric() || (c == classBool && role == "outcome")
+		}
+		if !ok {
 			return &pipeline.Error{File: file, RowGroup: -1, Row: -1, Column: name,
 				Err: fmt.Errorf("%s column has type %s here but %s in the earlier input", role, typeName(f.Type), fc.Type)}
 		}
 		fc.col = i
+		if fc.Kind == KindNumeric {
+			fc.cls = c // the Inf check depends on it
+		}
 		return nil
 	}
 	if first {

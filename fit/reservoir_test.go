@@ -255,3 +255,34 @@ func TestReadSampleErrors(t *testing.T) {
 		})
 	}
 }
+
+// Later files may widen a numeric column (CSV inference makes int64 in one
+// file and float64 in the next) but not change a categorical one's class.
+func TestReadSampleTypeDrift(t *testing.T) {
+	mem := memory.NewGoAllocator()
+	first := mkBatch(t, mem, col{"t", arrow.PrimitiveTypes.Int64, anys(0, 1)}, col{"x", arrow.PrimitiveTypes.Int64, anys(1, 2)},
+		col{"c", arrow.BinaryTypes.String, anys("a", "b")})
+	widened := mkBatch(t, mem, col{"t", arrow.PrimitiveTypes.Int32, anys(0, 1)}, col{"x", arrow.PrimitiveTypes.Float64, anys(1.5, 2.5)},
+		col{"c", dictString, anys("a", "b")})
+	inf := mkBatch(t, mem, col{"t", arrow.PrimitiveTypes.Int64, anys(0, 1)}, col{"x", arrow.PrimitiveTypes.Float64, anys(1.5, math.Inf(1))},
+		col{"c", arrow.BinaryTypes.String, anys("a", "b")})
+	recoded := mkBatch(t, mem, col{"t", arrow.PrimitiveTypes.Int64, anys(0, 1)}, col{"x", arrow.PrimitiveTypes.Int64, anys(1, 2)},
+		col{"c", arrow.PrimitiveTypes.Int64, anys(1, 2)})
+	opt := SampleOptions{Treatment: "t", Covariates: []string{"x", "c"}}
+	fr, err := ReadSample(context.Background(), newMemSource(first, widened), opt)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !slices.Equal(fr.Columns[0].Num, []float64{1, 2, 1.5, 2.5}) {
+		t.Fatalf("x %v", fr.Columns[0].Num)
+	}
+	for _, c := range []struct {
+		rec  arrow.RecordBatch
+		want string
+	}{{inf, "row group 1: row 3"}, {recoded, "int64 here but utf8"}} {
+		_, err := ReadSample(context.Background(), newMemSource(first, c.rec), opt)
+		if err == nil || !strings.Contains(err.Error(), c.want) {
+			t.Errorf("error %v, want %q", err, c.want)
+		}
+	}
+}
