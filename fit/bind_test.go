@@ -67,6 +67,15 @@ func TestEncodeTypes(t *testing.T) {
 			{"y", arrow.PrimitiveTypes.Int32, anys(1, nil, nil, 4)},
 			{"extra", arrow.BinaryTypes.Binary, []any{nil, nil, nil, nil}},
 		}},
+		{"string views and float16", []col{
+			{"t", arrow.PrimitiveTypes.Int16, anys(1, 0, nil, 1)},
+			{"age", arrow.FixedWidthTypes.Float16, anys(30.0, 40.0, 50.0, 60.0)},
+			{"inc", arrow.FixedWidthTypes.Float16, anys(1.0, nil, math.NaN(), 4.0)},
+			{"reg", arrow.BinaryTypes.StringView, anys("s", "n", "e", "w")},
+			{"vip", arrow.FixedWidthTypes.Boolean, anys(true, false, false, true)},
+			{"code", arrow.PrimitiveTypes.Uint8, anys(3, 7, nil, 3)},
+			{"y", arrow.FixedWidthTypes.Float16, anys(1.5, nil, nil, 4.0)},
+		}},
 		{"large strings", []col{
 			{"t", arrow.PrimitiveTypes.Int32, anys(1, 0, nil, 1)},
 			{"age", arrow.PrimitiveTypes.Float64, anys(30.0, 40.0, 50.0, 60.0)},

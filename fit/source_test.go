@@ -7,6 +7,7 @@ import (
 
 	"github.com/apache/arrow-go/v18/arrow"
 	"github.com/apache/arrow-go/v18/arrow/array"
+	"github.com/apache/arrow-go/v18/arrow/float16"
 	"github.com/apache/arrow-go/v18/arrow/memory"
 
 	"github.com/heft-project/heft/pipeline"
@@ -104,6 +105,10 @@ func appendValue(fb array.Builder, v any) error {
 		b.Append(uint32(v.(int)))
 	case *array.Uint64Builder:
 		b.Append(uint64(v.(int)))
+	case *array.Float16Builder:
+		b.Append(float16.New(float32(v.(float64))))
+	case *array.StringViewBuilder:
+		b.Append(v.(string))
 	case *array.StringBuilder:
 		b.Append(v.(string))
 	case *array.LargeStringBuilder:
