@@ -8,6 +8,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"io/fs"
 	"os"
 	"path/filepath"
 	"slices"
@@ -103,7 +104,11 @@ func writeAtomic(path string, data []byte) (err error) {
 func Load(path string) (*Model, error) {
 	b, err := os.ReadFile(path)
 	if err != nil {
-		return nil, err // *fs.PathError already names the path
+		var pe *fs.PathError
+		if errors.As(err, &pe) {
+			err = pe.Err
+		}
+		return nil, fmt.Errorf("%s: cannot read model file: %w", path, err)
 	}
 	m, err := Unmarshal(b)
 	if err != nil {

@@ -3,6 +3,8 @@ package fit
 import (
 	"bytes"
 	"encoding/json"
+	"errors"
+	"io/fs"
 	"os"
 	"path/filepath"
 	"reflect"
@@ -167,7 +169,8 @@ func TestModelFileRefusals(t *testing.T) {
 			}
 		})
 	}
-	if _, err := Load(filepath.Join(dir, "absent.json")); err == nil || !strings.Contains(err.Error(), "absent.json") {
+	absent := filepath.Join(dir, "absent.json")
+	if _, err := Load(absent); err == nil || !strings.HasPrefix(err.Error(), absent+": cannot read model file") || !errors.Is(err, fs.ErrNotExist) {
 		t.Fatalf("absent file: %v", err)
 	}
 }
