@@ -286,3 +286,17 @@ func TestReadSampleTypeDrift(t *testing.T) {
 		}
 	}
 }
+
+// BenchmarkReadSample: 16 batches of 65536 rows (id, t, lvl) into a
+// reservoir of 10000.
+func BenchmarkReadSample(b *testing.B) {
+	mem := memory.NewGoAllocator()
+	src := idSource(b, mem, 1<<20, 1<<16)
+	b.SetBytes(1 << 20) // MB/s reads as million rows per second
+	for b.Loop() {
+		src.i, src.row = -1, 0
+		if _, err := ReadSample(context.Background(), src, SampleOptions{Treatment: "t", Covariates: []string{"id", "lvl"}, SampleRows: 10000, Seed: 1}); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
