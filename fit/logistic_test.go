@@ -13,6 +13,7 @@ import (
 	"slices"
 	"strconv"
 	"strings"
+	"sync/atomic"
 	"testing"
 )
 
@@ -506,6 +507,38 @@ func TestFitLogisticCancelled(t *testing.T) {
 	cancel()
 	if _, err := FitLogistic(ctx, X, y, terms, GLMOptions{}); !errors.Is(err, context.Canceled) {
 		t.Errorf("error %v, want context.Canceled", err)
+	}
+}
+
+// countdownCtx reports cancellation after its Err has been asked n times,
+// to cancel in the middle of a fit.
+type countdownCtx struct {
+	context.Context
+	n atomic.Int64
+}
+
+func (c *countdownCtx) Err() error {
+	if c.n.Add(-1) < 0 {
+		return context.Canceled
+	}
+	return nil
+}
+
+func TestFitCancelledMidway(t *testing.T) {
+	X, y, terms := synth(4*chunkRows, 3, 1)
+	for _, after := range []int64{3, 10, 20} {
+		ctx := &countdownCtx{Context: context.Background()}
+		ctx.n.Store(after)
+		if _, err := FitLogistic(ctx, X, y, terms, GLMOptions{}); !errors.Is(err, context.Canceled) {
+			t.Errorf("logistic, cancelled after %d checks: error %v", after, err)
+		}
+		if after > 8 {
+			continue // a linear fit asks fewer times
+		}
+		ctx.n.Store(after)
+		if _, err := FitLinear(ctx, X, y, terms, GLMOptions{}); !errors.Is(err, context.Canceled) {
+			t.Errorf("linear, cancelled after %d checks: error %v", after, err)
+		}
 	}
 }
 
