@@ -25,8 +25,7 @@ const (
 // another goroutine its own.
 type Encoder struct {
 	enc     *Encoding
-	schema  *arrow.Schema
-	file    string
+	schema  *arrow.Schema // the last batch schema checked
 	unseen  string
 	nTerms  int // terms without the intercept
 	treat   binding
@@ -71,7 +70,7 @@ func (e *Encoding) Bind(schema *arrow.Schema, file string, outcome bool, unseen 
 	default:
 		return nil, fmt.Errorf("unseen-level policy %q: want %s or %s", unseen, UnseenError, UnseenReference)
 	}
-	enc := &Encoder{enc: e, file: file, unseen: unseen, schema: schema}
+	enc := &Encoder{enc: e, unseen: unseen, schema: schema}
 	var err error
 	if enc.treat, err = e.bindTreatment(schema, file); err != nil {
 		return nil, err
