@@ -67,12 +67,45 @@ func bin(edges []float64, x float64) int {
 	return k
 }
 
-// add folds one batch in. x[j] is term j+1 per row; arm and w as for
+// maxDeciles is how many edges the fast binning handles: the distinct
+// interior deciles are at most nine.
+const maxDeciles = 9
+
+// deciles are up to nine sorted edges padded with +Inf, which no finite
+// value exceeds, so that bin9 can count without a loop or branches.
+type deciles [maxDeciles]float64
+
+func padDeciles(edges []float64) (d deciles, ok bool) {
+	if len(edges) > maxDeciles {
+		return d, false
+	}
+	for k := range d {
+		d[k] = math.Inf(1)
+	}
+	copy(d[:], edges)
+	return d, true
+}
+
+func b2i(b bool) int {
+	if b {
+		return 1
+	}
+	return 0
+}
+
+// bin9 is bin for padded edges: the same count written out, which compiles
+// to branch-free code (random data would mispredict the scan's exit).
+func bin9(e *deciles, x float64) int {
+	return b2i(e[0] < x) + b2i(e[1] < x) + b2i(e[2] < x) + b2i(e[3] < x) + b2i(e[4] < x) +
+		b2i(e[5] < x) + b2i(e[6] < x) + b2i(e[7] < x) + b2i(e[8] < x)
+}
+
+// add folds one batch in. x[j] is term j+1 per row; rows and w as for
 // armMoments; hist is scratch with room for the largest histogram.
-func (b *balance) add(x [][]float64, arm []int8, w []float64, hist []float64) {
+func (b *balance) add(x [][]float64, rows *arms, w []float64, hist []float64) {
 	var u, wt [2]Moments
 	for j, col := range x {
-		armMoments(col, arm, w, &u, &wt)
+		armMoments(col, rows, w, &u, &wt)
 		for a := 0; a < 2; a++ {
 			b.U[a][j].Merge(u[a])
 			b.W[a][j].Merge(wt[a])
@@ -81,18 +114,21 @@ func (b *balance) add(x [][]float64, arm []int8, w []float64, hist []float64) {
 			continue
 		}
 		e := b.edges[j]
-		nb := len(e) + 1
-		h := hist[:2*nb]
-		clear(h)
-		for i, a := range arm {
-			if a < 0 {
-				continue
+		pad, fast := padDeciles(e)
+		for a, idx := range rows {
+			h := hist[:len(e)+1]
+			clear(h)
+			if fast {
+				for _, i := range idx {
+					h[bin9(&pad, col[i])] += w[i]
+				}
+			} else {
+				for _, i := range idx {
+					h[bin(e, col[i])] += w[i]
+				}
 			}
-			h[int(a)*nb+bin(e, col[i])] += w[i]
-		}
-		for a := 0; a < 2; a++ {
-			for k := 0; k < nb; k++ {
-				b.H[a][j][k].Add(h[a*nb+k])
+			for k, v := range h {
+				b.H[a][j][k].Add(v)
 			}
 		}
 	}

@@ -252,6 +252,10 @@ func TestBin(t *testing.T) {
 		if got := bin(edges, c.x); got != c.bin {
 			t.Errorf("bin(%v) = %d, want %d", c.x, got, c.bin)
 		}
+		pad, _ := padDeciles(edges)
+		if got := bin9(&pad, c.x); got != c.bin {
+			t.Errorf("bin9(%v) = %d, want %d", c.x, got, c.bin)
+		}
 		if got := histBin(edges, c.x); got != c.hist {
 			t.Errorf("histBin(%v) = %d, want %d", c.x, got, c.hist)
 		}

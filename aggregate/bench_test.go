@@ -10,7 +10,7 @@ import (
 )
 
 // benchInput is an invented 65536-row batch of 20 terms (demo data).
-func benchInput(b *testing.B) (*State, *fit.Batch, *score.Scores) {
+func benchInput(b *testing.B, outcome bool) (*State, *fit.Batch, *score.Scores) {
 	const n, p = 65536, 20
 	rng := rand.New(rand.NewPCG(3, 4))
 	terms := []string{"intercept"}
@@ -39,6 +39,18 @@ func benchInput(b *testing.B) (*State, *fit.Batch, *score.Scores) {
 		sc.E[i], sc.W[i], sc.WValid[i], sc.InSupport[i] = e, score.Weight(score.ATE, bt.T[i], e), true, true
 	}
 	m := &fit.Model{Propensity: fit.GLM{Family: fit.FamilyBinomial, Terms: terms, Coef: make([]float64, p+1)}, Reference: ref, Checksum: "sha256:bench"}
+	if outcome {
+		bt.Y, bt.YValid = make([]float64, n), make([]bool, n)
+		sc.Mu0, sc.Mu1 = make([]float64, n), make([]float64, n)
+		for i := 0; i < n; i++ {
+			sc.Mu0[i] = bt.X[0][i]
+			sc.Mu1[i] = sc.Mu0[i] + 1
+			bt.Y[i] = sc.Mu0[i] + float64(bt.T[i]) + rng.NormFloat64()
+			bt.YValid[i] = true
+		}
+		g := fit.GLM{Family: fit.FamilyGaussian, Terms: terms, Coef: make([]float64, p+1)}
+		m.Outcome = &fit.OutcomeModels{Kind: "continuous", Treated: g, Control: g}
+	}
 	s, err := New(Config{Model: m, Policy: score.Policy{Estimand: score.ATE}}, nil)
 	if err != nil {
 		b.Fatal(err)
@@ -46,21 +58,29 @@ func benchInput(b *testing.B) (*State, *fit.Batch, *score.Scores) {
 	return s, bt, sc
 }
 
-// BenchmarkStateAdd measures Add on one 65536-row, 20-term batch without
-// an outcome (balance, overlap, drift), the way the engine calls it: a
-// fresh State per batch, merged into the run's.
+// BenchmarkStateAdd measures Add on one 65536-row, 20-term batch, the way
+// the engine calls it: a fresh State per batch, merged into the run's.
+// "balance" has no outcome (balance, overlap, drift only); "outcome" adds
+// the effect estimates.
 func BenchmarkStateAdd(b *testing.B) {
-	run, bt, sc := benchInput(b)
-	b.ReportAllocs()
-	b.ResetTimer()
-	for i := 0; i < b.N; i++ {
-		s := run.Empty()
-		if err := s.Add(nil, bt, sc); err != nil {
-			b.Fatal(err)
-		}
-		if err := run.Merge(s); err != nil {
-			b.Fatal(err)
-		}
+	for _, c := range []struct {
+		name    string
+		outcome bool
+	}{{"balance", false}, {"outcome", true}} {
+		b.Run(c.name, func(b *testing.B) {
+			run, bt, sc := benchInput(b, c.outcome)
+			b.ReportAllocs()
+			b.ResetTimer()
+			for i := 0; i < b.N; i++ {
+				s := run.Empty()
+				if err := s.Add(nil, bt, sc); err != nil {
+					b.Fatal(err)
+				}
+				if err := run.Merge(s); err != nil {
+					b.Fatal(err)
+				}
+			}
+			b.ReportMetric(float64(bt.N)*float64(b.N)/b.Elapsed().Seconds(), "rows/s")
+		})
 	}
-	b.ReportMetric(float64(bt.N)*float64(b.N)/b.Elapsed().Seconds(), "rows/s")
 }

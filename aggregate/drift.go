@@ -31,10 +31,15 @@ func (d *drift) check() error {
 	return nil
 }
 
-func (d *drift) add(e []float64, arm []int8) {
-	for i, a := range arm {
-		if a >= 0 {
-			d.Counts[bin(d.deciles, e[i])]++
+func (d *drift) add(e []float64, rows *arms) {
+	pad, fast := padDeciles(d.deciles)
+	for _, idx := range rows {
+		for _, i := range idx {
+			if fast {
+				d.Counts[bin9(&pad, e[i])]++
+			} else {
+				d.Counts[bin(d.deciles, e[i])]++
+			}
 		}
 	}
 }

@@ -53,62 +53,58 @@ func (m Moments) WeightedVar() float64 {
 	return m.M2 / m.W
 }
 
+// arms lists a batch's rows per arm, control (0) then treated (1), so that
+// per-arm loops keep their sums in registers instead of indexing by arm.
+type arms [2][]int32
+
+// split fills r from treatment codes, leaving out rows coded −1.
+func (r *arms) split(arm []int8) {
+	r[0], r[1] = r[0][:0], r[1][:0]
+	for i, a := range arm {
+		if a >= 0 {
+			r[a] = append(r[a], int32(i))
+		}
+	}
+}
+
 // armMoments computes one batch's moments of x per arm, unweighted into u
 // and weighted by w into wt, with the corrected two-pass algorithm (Chan,
 // Golub & LeVeque 1983, "Algorithms for computing the sample variance",
 // Am. Stat. 37(3)): M2 = Σ d² − (Σ d)²/W with d = x − mean, which removes
-// most of the rounding left in the first pass's mean. arm[i] is 0 or 1, or
-// −1 for rows left out; w[i] is 0 for rows without a usable weight.
-func armMoments(x []float64, arm []int8, w []float64, u, wt *[2]Moments) {
-	var n, sx, sw, swx [2]float64
-	for i, a := range arm {
-		if a < 0 {
+// most of the rounding left in the first pass's mean. w[i] is 0 for rows
+// without a usable weight.
+func armMoments(x []float64, rows *arms, w []float64, u, wt *[2]Moments) {
+	for a, idx := range rows {
+		var sx, sw, swx float64
+		for _, i := range idx {
+			xi, wi := x[i], w[i]
+			sx += xi
+			sw += wi
+			swx += wi * xi
+		}
+		n := float64(len(idx))
+		if n == 0 {
+			u[a], wt[a] = Moments{}, Moments{}
 			continue
 		}
-		xi := x[i]
-		n[a]++
-		sx[a] += xi
-		sw[a] += w[i]
-		swx[a] += w[i] * xi
-	}
-	var mean, meanw [2]float64
-	for a := 0; a < 2; a++ {
-		if n[a] > 0 {
-			mean[a] = sx[a] / n[a]
+		mean := sx / n
+		meanw := 0.0
+		if sw > 0 {
+			meanw = swx / sw
 		}
-		if sw[a] > 0 {
-			meanw[a] = swx[a] / sw[a]
+		var sd, sd2, swd, swd2 float64
+		for _, i := range idx {
+			d := x[i] - mean
+			sd += d
+			sd2 += d * d
+			dw := x[i] - meanw
+			wd := w[i] * dw
+			swd += wd
+			swd2 += wd * dw
 		}
-	}
-	var sd, sd2, swd, swd2 [2]float64
-	for i, a := range arm {
-		if a < 0 {
-			continue
-		}
-		d := x[i] - mean[a]
-		sd[a] += d
-		sd2[a] += d * d
-		dw := x[i] - meanw[a]
-		wd := w[i] * dw
-		swd[a] += wd
-		swd2[a] += wd * dw
-	}
-	for a := 0; a < 2; a++ {
-		if n[a] > 0 {
-			m2 := sd2[a] - sd[a]*sd[a]/n[a]
-			if m2 < 0 {
-				m2 = 0
-			}
-			u[a] = Moments{W: n[a], Mean: mean[a] + sd[a]/n[a], M2: m2}
-		} else {
-			u[a] = Moments{}
-		}
-		if sw[a] > 0 {
-			m2 := swd2[a] - swd[a]*swd[a]/sw[a]
-			if m2 < 0 {
-				m2 = 0
-			}
-			wt[a] = Moments{W: sw[a], Mean: meanw[a] + swd[a]/sw[a], M2: m2}
+		u[a] = Moments{W: n, Mean: mean + sd/n, M2: max(sd2-sd*sd/n, 0)}
+		if sw > 0 {
+			wt[a] = Moments{W: sw, Mean: meanw + swd/sw, M2: max(swd2-swd*swd/sw, 0)}
 		} else {
 			wt[a] = Moments{}
 		}

@@ -75,7 +75,9 @@ func TestArmMoments(t *testing.T) {
 	arm := []int8{1, 0, 1, 0, 1, 0, 1, -1}
 	w := []float64{1, 2, 0.5, 1, 3, 0, 2, 9}
 	var u, wt [2]Moments
-	armMoments(x, arm, w, &u, &wt)
+	var rows arms
+	rows.split(arm)
+	armMoments(x, &rows, w, &u, &wt)
 	// treated: x = 1, 3, 5, 7; mean 4, Σ(x−4)² = 20, s² = 20/3
 	if u[1].W != 4 || u[1].Mean != 4 || u[1].SampleVar() != 20.0/3 {
 		t.Errorf("treated unweighted %+v", u[1])

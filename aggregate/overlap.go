@@ -78,35 +78,37 @@ func histBin(edges []float64, x float64) int {
 	return k
 }
 
-// add folds in one batch: e propensities, arm and w as for armMoments;
-// hist is scratch of at least 2·bins.
-func (o *overlap) add(e []float64, arm []int8, w []float64, hist []float64) {
+// add folds in one batch: e propensities, rows and w as for armMoments;
+// hist is scratch of at least the number of bins.
+func (o *overlap) add(e []float64, rows *arms, w []float64, hist []float64) {
 	nb := len(o.Counts[0])
-	h := hist[:2*nb]
-	clear(h)
-	for i, a := range arm {
-		if a < 0 {
-			continue
-		}
-		ei := e[i]
-		if ei < eLow {
-			o.Below[a]++
-		} else if ei > eHigh {
-			o.Above[a]++
-		}
-		if nb > 0 {
-			k := histBin(o.edges, ei)
-			o.Counts[a][k]++
-			h[int(a)*nb+k] += w[i]
-		}
+	for a, idx := range rows {
+		h := hist[:nb]
+		clear(h)
+		counts := o.Counts[a]
+		var below, above int64
 		top := o.Top[a]
-		if wi := w[i]; len(top) < topK || wi > top[len(top)-1] {
-			o.Top[a] = pushTop(top, wi)
+		for _, i := range idx {
+			ei := e[i]
+			if ei < eLow {
+				below++
+			} else if ei > eHigh {
+				above++
+			}
+			if nb > 0 {
+				k := histBin(o.edges, ei)
+				counts[k]++
+				h[k] += w[i]
+			}
+			if wi := w[i]; len(top) < topK || wi > top[len(top)-1] {
+				top = pushTop(top, wi)
+			}
 		}
-	}
-	for a := 0; a < 2; a++ {
-		for k := 0; k < nb; k++ {
-			o.Weighted[a][k].Add(h[a*nb+k])
+		o.Top[a] = top
+		o.Below[a] += below
+		o.Above[a] += above
+		for k, v := range h {
+			o.Weighted[a][k].Add(v)
 		}
 	}
 }

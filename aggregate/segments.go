@@ -2,6 +2,7 @@ package aggregate
 
 import (
 	"encoding/binary"
+	"errors"
 	"fmt"
 	"strconv"
 	"strings"
@@ -34,27 +35,40 @@ type cell struct {
 	Effects *Effects `json:"effects"`
 }
 
-// add folds in a batch; arm and w are derived from b and s by the State.
-func (c *cell) add(b *fit.Batch, s *score.Scores, arm []int8, w []float64, hist []float64) {
+// add folds in a batch; rows and w are derived from b and s by the State,
+// hist and eff are scratch.
+func (c *cell) add(b *fit.Batch, s *score.Scores, rows *arms, w []float64, hist []float64, eff *EffectsScratch) {
 	c.Rows += int64(b.N)
-	var n [2]int64
-	var sw, sw2 [2]float64
-	for i, a := range arm {
-		if a < 0 {
-			c.NullTreatment++
-			continue
+	c.NullTreatment += int64(b.N - len(rows[0]) - len(rows[1]))
+	for a, idx := range rows {
+		var sw, sw2 float64
+		for _, i := range idx {
+			sw += w[i]
+			sw2 += w[i] * w[i]
 		}
-		n[a]++
-		sw[a] += w[i]
-		sw2[a] += w[i] * w[i]
+		c.N[a] += int64(len(idx))
+		c.SumW[a].Add(sw)
+		c.SumW2[a].Add(sw2)
 	}
-	for a := 0; a < 2; a++ {
-		c.N[a] += n[a]
-		c.SumW[a].Add(sw[a])
-		c.SumW2[a].Add(sw2[a])
+	c.Balance.add(b.X, rows, w, hist)
+	c.Effects.AddWith(b, s, eff)
+}
+
+// check refuses a decoded cell whose parts lack the model's shape.
+func (c *cell) check(sh *shared) error {
+	if c.Balance == nil || c.Effects == nil {
+		return errors.New("state is missing accumulators")
 	}
-	c.Balance.add(b.X, arm, w, hist)
-	c.Effects.Add(b, s)
+	if err := c.Balance.check(len(sh.terms)); err != nil {
+		return err
+	}
+	if err := c.Effects.Check(); err != nil {
+		return err
+	}
+	if c.Effects.Config != sh.effects {
+		return errors.New("state's effects were accumulated for another configuration")
+	}
+	return nil
 }
 
 func (c *cell) merge(o *cell) error {
@@ -301,6 +315,7 @@ type gathered struct {
 	b        fit.Batch
 	s        score.Scores
 	arm      []int8
+	rows     arms
 	w        []float64
 	y        []float64
 	yv       []bool

@@ -67,6 +67,7 @@ type shared struct {
 // per batch allocates no per-row memory.
 type scratch struct {
 	arm    []int8
+	rows   arms
 	w      []float64
 	hist   []float64
 	key    []byte
@@ -76,6 +77,7 @@ type scratch struct {
 	local  []*segment
 	count  []int32
 	g      gathered
+	eff    EffectsScratch // shared by the run's and the segments' Effects
 }
 
 // accum is everything a State adds up; its JSON form is the state file's
@@ -203,7 +205,7 @@ func newShared(m *fit.Model, p score.Policy, set settings) (*shared, error) {
 		return nil, fmt.Errorf("model file: %d propensity decile counts for %d deciles; want one more count than deciles", len(ref.DecileCounts), len(ref.PropensityDeciles))
 	}
 	maxBins = max(maxBins, len(ref.PropensityEdges)-1)
-	sh.histSize = 2 * maxBins
+	sh.histSize = maxBins
 	sh.effects = EffectsConfig{Policy: p, NTerms: len(m.Propensity.Coef)}
 	if m.Outcome != nil {
 		sh.effects.HasOutcome = true
@@ -303,9 +305,10 @@ func (s *State) Add(rec arrow.RecordBatch, b *fit.Batch, sc *score.Scores) error
 		}
 	}
 
-	a.Whole.add(b, sc, arm, w, x.hist)
-	a.Overlap.add(sc.E, arm, w, x.hist)
-	a.Drift.add(sc.E, arm)
+	x.rows.split(arm)
+	a.Whole.add(b, sc, &x.rows, w, x.hist, &x.eff)
+	a.Overlap.add(sc.E, &x.rows, w, x.hist)
+	a.Drift.add(sc.E, &x.rows)
 	a.Clipped += sc.Clipped
 	a.Trimmed += sc.Trimmed
 	a.Truncated += sc.Truncated
@@ -405,7 +408,8 @@ func (s *State) addSegments(cols []arrow.Array, b *fit.Batch, sc *score.Scores, 
 	}
 	for l, g := range x.local {
 		gather(idx[off[l]:off[l+1]], b, sc, x.arm, x.w, &x.g)
-		g.add(&x.g.b, &x.g.s, x.g.arm, x.g.w, x.hist)
+		x.g.rows.split(x.g.arm)
+		g.add(&x.g.b, &x.g.s, &x.g.rows, x.g.w, x.hist, &x.eff)
 	}
 	return nil
 }
@@ -611,10 +615,10 @@ func (a *accum) decode(sh *shared, data []byte) error {
 	if err := json.Unmarshal(data, &body); err != nil {
 		return fmt.Errorf("reading state: %w", err)
 	}
-	if a.Whole.Balance == nil || a.Whole.Effects == nil || a.Overlap == nil || a.Drift == nil {
+	if a.Overlap == nil || a.Drift == nil {
 		return errors.New("state is missing accumulators")
 	}
-	if err := a.Whole.Balance.check(len(sh.terms)); err != nil {
+	if err := a.Whole.check(sh); err != nil {
 		return err
 	}
 	if err := a.Overlap.check(); err != nil {
@@ -634,10 +638,7 @@ func (a *accum) decode(sh *shared, data []byte) error {
 		if err := json.Unmarshal(r, g); err != nil {
 			return fmt.Errorf("reading segment %d: %w", i, err)
 		}
-		if g.Balance == nil || g.Effects == nil {
-			return fmt.Errorf("segment %d is missing accumulators", i)
-		}
-		if err := g.Balance.check(len(sh.terms)); err != nil {
+		if err := g.check(sh); err != nil {
 			return fmt.Errorf("segment %d: %w", i, err)
 		}
 		if len(g.Values) != len(sh.set.By) {
