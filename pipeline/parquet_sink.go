@@ -228,8 +228,8 @@ func (s *parquetSink) Write(ctx context.Context, rec arrow.RecordBatch) error {
 	if s.closed {
 		return At(s.name, errors.New("write after close"))
 	}
-	if !rec.Schema().Equal(s.schema) {
-		return s.fail(-1, "", fmt.Errorf("batch schema %s does not match the output schema %s", rec.Schema(), s.schema))
+	if col, err := sameColumns(s.schema, rec); err != nil {
+		return s.fail(-1, col, err)
 	}
 	n := rec.NumRows()
 	for off := int64(0); off < n; {
@@ -264,6 +264,28 @@ func (s *parquetSink) Write(ctx context.Context, rec arrow.RecordBatch) error {
 		}
 	}
 	return nil
+}
+
+// sameColumns checks that rec has the columns the file was started with:
+// names, types and nullability (field metadata may differ; it is not written
+// per batch). It names the first column that differs.
+func sameColumns(sc *arrow.Schema, rec arrow.RecordBatch) (string, error) {
+	got := rec.Schema()
+	if got.NumFields() != sc.NumFields() {
+		return "", fmt.Errorf("batch has %d columns, the output %d", got.NumFields(), sc.NumFields())
+	}
+	for i, f := range sc.Fields() {
+		g := got.Field(i)
+		switch {
+		case g.Name != f.Name:
+			return f.Name, fmt.Errorf("batch has column %q in this place", g.Name)
+		case !arrow.TypeEqual(g.Type, f.Type):
+			return f.Name, fmt.Errorf("batch column has type %s, the output %s", g.Type, f.Type)
+		case !f.Nullable && rec.Column(i).NullN() > 0:
+			return f.Name, fmt.Errorf("%d nulls in a column declared non-nullable", rec.Column(i).NullN())
+		}
+	}
+	return "", nil
 }
 
 // writeColumns encodes the columns of rec into the current row group, up to

@@ -307,3 +307,30 @@ func TestParquetSinkRejectsNested(t *testing.T) {
 		t.Error("nested column accepted")
 	}
 }
+
+func TestParquetSinkEmpty(t *testing.T) {
+	data := writeTest(t, ParquetSinkOptions{})
+	f := openPQ(t, data)
+	if f.NumRows() != 0 || len(f.Schema().Fields()) != len(sinkSchema.Fields()) {
+		t.Errorf("empty output: %d rows, schema %v", f.NumRows(), f.Schema())
+	}
+}
+
+func TestParquetSinkNullInRequired(t *testing.T) {
+	sc := arrow.NewSchema([]arrow.Field{{Name: "id", Type: arrow.PrimitiveTypes.Int64}}, nil)
+	b := array.NewInt64Builder(memory.DefaultAllocator)
+	b.AppendValues([]int64{1, 2}, nil)
+	b.AppendNull()
+	col := b.NewArray()
+	rec := array.NewRecordBatch(sc, []arrow.Array{col}, 3)
+	s, err := NewParquetWriter(io.Discard, sc, ParquetSinkOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	err = s.Write(context.Background(), rec)
+	var pe *Error
+	if !errors.As(err, &pe) || pe.Column != "id" {
+		t.Errorf("error %v, want one naming column id", err)
+	}
+	s.Abort()
+}
