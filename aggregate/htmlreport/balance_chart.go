@@ -41,8 +41,9 @@ func balanceChart(rows []balanceRow, threshold float64) *chart {
 			}
 		}
 	}
-	p.NominalY(names...)
+	nominalY(p, names)
 	p.X.Min, p.X.Max = 0, xmax*1.12
+	p.X.Tick.Marker = plot.TickerFunc(niceTicks)
 	p.Y.Min, p.Y.Max = -0.7, float64(n)+0.2 // headroom for the zone's label
 	p.Add(&targetZone{threshold: threshold, rows: n}, &smdArrows{rows: rows})
 	return &chart{

@@ -5,7 +5,9 @@ import (
 	"fmt"
 	"image/color"
 	"io"
+	"math"
 	"regexp"
+	"strconv"
 	"strings"
 
 	"gonum.org/v1/plot"
@@ -126,6 +128,42 @@ func (c *chart) writePNG(w io.Writer, dpi int) error {
 		return fmt.Errorf("%s chart: %w", c.Name, err)
 	}
 	return nil
+}
+
+// nominalY labels the y axis with names at 0, 1, …; with no names it
+// leaves the axis unlabelled (plot.NominalY needs at least one).
+func nominalY(p *plot.Plot, names []string) {
+	if len(names) == 0 {
+		p.Y.Tick.Marker = plot.ConstantTicks{}
+		return
+	}
+	p.NominalY(names...)
+}
+
+// niceTicks labels every step of 1, 2 or 5 times a power of ten that
+// gives about six intervals over [min, max], with true minus signs.
+func niceTicks(min, max float64) []plot.Tick {
+	span := max - min
+	if !(span > 0) || !finite(span) {
+		return nil
+	}
+	raw := span / 6
+	p := math.Pow(10, math.Floor(math.Log10(raw)))
+	step := p
+	for _, m := range []float64{1, 2, 2.5, 5, 10} {
+		if m*p >= raw {
+			step = m * p
+			break
+		}
+	}
+	var t []plot.Tick
+	for v := math.Ceil(min/step) * step; v <= max+step*1e-9; v += step {
+		if math.Abs(v) < step*1e-9 {
+			v = 0
+		}
+		t = append(t, plot.Tick{Value: v, Label: strings.Replace(strconv.FormatFloat(v, 'g', 6, 64), "-", "−", 1)})
+	}
+	return t
 }
 
 var htmlEscaper = strings.NewReplacer("&", "&amp;", "<", "&lt;", ">", "&gt;", `"`, "&#34;", "'", "&#39;")

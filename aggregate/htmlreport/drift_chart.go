@@ -1,7 +1,6 @@
 package htmlreport
 
 import (
-	"fmt"
 	"image/color"
 	"math"
 
@@ -39,8 +38,9 @@ func driftChart(terms []driftTerm) *chart {
 			m = math.Max(m, math.Abs(t.ShiftSD))
 		}
 	}
-	p.NominalY(names...)
+	nominalY(p, names)
 	p.X.Min, p.X.Max = -m*1.3, m*1.3
+	p.X.Tick.Marker = plot.TickerFunc(niceTicks)
 	p.Y.Min, p.Y.Max = -0.7, float64(max(n, 1))-0.3
 	p.Add(&shiftBars{terms: terms})
 	return &chart{
@@ -78,6 +78,6 @@ func (b *shiftBars) Plot(c draw.Canvas, p *plot.Plot) {
 			lab.XAlign = draw.XRight
 			x1 -= vg.Points(4)
 		}
-		c.FillText(lab, vg.Point{X: x1, Y: yy}, fmt.Sprintf("%+.3f", t.ShiftSD))
+		c.FillText(lab, vg.Point{X: x1, Y: yy}, signed3(t.ShiftSD))
 	}
 }

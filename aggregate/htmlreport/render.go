@@ -69,10 +69,14 @@ func figuresOf(f figures) ([]Figure, error) {
 	if err != nil {
 		return nil, err
 	}
+	wt, err := weightsChart(f.weights)
+	if err != nil {
+		return nil, err
+	}
 	return []Figure{
 		{"balance", balanceChart(f.balance, f.threshold)},
 		{"overlap", ov},
-		{"weights", weightsChart(f.weights)},
+		{"weights", wt},
 		{"drift", driftChart(f.drift)},
 	}, nil
 }

@@ -172,6 +172,8 @@ func emptyReport() *aggregate.Report {
 	r.Overlap.Edges = []float64{0, 0.5, 1}
 	r.Overlap.Counts.Treated = []int64{0, 0}
 	r.Overlap.Counts.Control = []int64{3, 2}
+	r.Overlap.Weighted.Treated = []aggregate.Float{0, 0}
+	r.Overlap.Weighted.Control = []aggregate.Float{6, 4}
 	r.Overlap.LargestWeightsShare = aggregate.Arms{Treated: nan(), Control: 0.5}
 	return r
 }
@@ -185,6 +187,7 @@ func TestRenderDegenerate(t *testing.T) {
 		want []string
 	}{
 		{"no treated rows", func(*aggregate.Report) {}, []string{"No effects were estimated", "not computable", "No treated rows"}},
+		{"no terms", func(r *aggregate.Report) { r.Balance, r.Drift.Terms = nil, nil }, []string{`id="chart-balance"`, `id="chart-drift"`}},
 		{"inf SMD", func(r *aggregate.Report) { r.Balance[0].SMDUnweighted = aggregate.Float(math.Inf(1)) }, []string{"∞"}},
 		{"segments without by", func(r *aggregate.Report) {
 			r.Segments = []aggregate.SegmentReport{{By: map[string]string{"region": "north"}, Rows: 5, Suppressed: true, ESS: aggregate.Arms{Treated: nan(), Control: 5}, MaxAbsSMDWeighted: nan()}}
@@ -213,6 +216,11 @@ func TestRenderDegenerate(t *testing.T) {
 	if err := Render(&bytes.Buffer{}, r, Options{}); err == nil || !strings.Contains(err.Error(), "overlap") {
 		t.Errorf("mismatched overlap bins: error %v, want one naming the overlap", err)
 	}
+	r = emptyReport()
+	r.Overlap.Weighted.Control = nil
+	if err := Render(&bytes.Buffer{}, r, Options{}); err == nil || !strings.Contains(err.Error(), "control arm has 0 weighted propensity bins") {
+		t.Errorf("missing weighted bins: error %v, want one naming the arm", err)
+	}
 }
 
 func TestNum(t *testing.T) {
@@ -224,7 +232,8 @@ func TestNum(t *testing.T) {
 		{-890.04, "−890.0"},
 		{1234.6, "1235"},
 		{0.012345, "0.01235"},
-		{123456789, "123456789"},
+		{123456789, "123,456,789"},
+		{-44994.4, "−44,994"},
 		{2.5e-7, "2.5e-07"},
 		{-2.5e-7, "−2.5e-07"},
 		{math.NaN(), "–"},

@@ -79,7 +79,7 @@ type gateView struct {
 }
 
 type effectRow struct {
-	Estimand, EstimandKey, Estimator                  string
+	Estimand, EstimandKey, Estimator, EstimatorKey    string
 	Estimate, SE, SEModel, CILow, CIHigh, Run, RowCls string
 }
 
@@ -158,6 +158,8 @@ func newFigures(r *aggregate.Report) figures {
 	n := [2]int64{r.Control, r.Treated}
 	sw := [2]float64{f64(r.SumWeights.Control), f64(r.SumWeights.Treated)}
 	f.weights = weightsFig{
+		BinRows:  [2][]int64{o.Counts.Control, o.Counts.Treated},
+		BinSumW:  [2][]float64{floats(o.Weighted.Control), floats(o.Weighted.Treated)},
 		Top:      [2][]float64{top(o.LargestWeights.Control), top(o.LargestWeights.Treated)},
 		ESS:      [2]float64{f64(r.ESS.Control), f64(r.ESS.Treated)},
 		N:        n,
@@ -180,6 +182,14 @@ func newFigures(r *aggregate.Report) figures {
 		return worse(math.Abs(f.drift[i].ShiftSD), math.Abs(f.drift[j].ShiftSD))
 	})
 	return f
+}
+
+func floats(v []aggregate.Float) []float64 {
+	out := make([]float64, len(v))
+	for i, x := range v {
+		out[i] = float64(x)
+	}
+	return out
 }
 
 // worse orders figures descending with NaN first.
@@ -263,7 +273,7 @@ func newView(r *aggregate.Report, f figures, opt Options) *view {
 		{"Model", "checksum " + r.ModelChecksum},
 		{"Fit date", fitDate},
 		{"Terms", fmt.Sprintf("%d: %s", len(terms), v.Terms)},
-		{"Estimand", strings.ToUpper(r.Estimand) + " — the weights target " + estimandWhom(r.Estimand, "rows")},
+		{"Estimand", strings.ToUpper(r.Estimand) + " — the weights target " + estimandWhom(r.Estimand, opt.PopulationLabel)},
 		{"Weight policy", policyText(r.Policy)},
 		{"heft version", opt.HeftVersion},
 	}
@@ -273,9 +283,9 @@ func newView(r *aggregate.Report, f figures, opt Options) *view {
 	case !r.Gate.Checked:
 		v.Gate = gateView{Status: "No gate was set for this run (--max-smd, --min-ess-share, --max-psi).", Class: "gate-none"}
 	case r.Gate.Passed:
-		v.Gate = gateView{Status: "Gate passed: " + gateThresholds(r.Gate.Thresholds) + ".", Class: "gate-pass"}
+		v.Gate = gateView{Status: "Gate passed (required: " + gateThresholds(r.Gate.Thresholds) + ").", Class: "gate-pass"}
 	default:
-		v.Gate = gateView{Status: "Gate FAILED: " + gateThresholds(r.Gate.Thresholds) + ".", Class: "gate-fail"}
+		v.Gate = gateView{Status: "Gate FAILED (required: " + gateThresholds(r.Gate.Thresholds) + "):", Class: "gate-fail"}
 		for _, g := range r.Gate.Failures {
 			v.Gate.Failures = append(v.Gate.Failures, g.Message)
 		}
@@ -298,7 +308,7 @@ func newView(r *aggregate.Report, f figures, opt Options) *view {
 		for _, name := range estimatorOrder(byEst) {
 			e := byEst[name]
 			row := effectRow{
-				Estimand: strings.ToUpper(est), EstimandKey: est, Estimator: estimatorLabel(name),
+				Estimand: strings.ToUpper(est), EstimandKey: est, Estimator: estimatorLabel(name), EstimatorKey: name,
 				Estimate: num(f64(e.Estimate)), SE: num(f64(e.SE)), SEModel: num(f64(e.SEWithModelUncertainty)),
 				CILow: num(f64(e.CILow)), CIHigh: num(f64(e.CIHigh)),
 			}
@@ -501,7 +511,7 @@ func gateThresholds(g aggregate.Gate) string {
 	if g.MaxPSI > 0 {
 		parts = append(parts, fmt.Sprintf("propensity PSI ≤ %g", g.MaxPSI))
 	}
-	return strings.Join(parts, ", ")
+	return strings.Join(parts, "; ")
 }
 
 func countList(m map[string]int64) []kv {
@@ -532,9 +542,31 @@ func num(v float64) string {
 		s = strconv.FormatFloat(v, 'g', 4, 64)
 	}
 	if v < 0 {
-		s = "−" + s[1:]
+		s = s[1:]
+	}
+	if a >= 1e4 && a < 1e9 { // group the thousands of large figures
+		s = groupDigits(s)
+	}
+	if v < 0 {
+		s = "−" + s
 	}
 	return s
+}
+
+// groupDigits puts commas between the thousands of s's integer part.
+func groupDigits(s string) string {
+	intPart, frac, _ := strings.Cut(s, ".")
+	var b strings.Builder
+	for i := range len(intPart) {
+		if i > 0 && (len(intPart)-i)%3 == 0 {
+			b.WriteByte(',')
+		}
+		b.WriteByte(intPart[i])
+	}
+	if frac != "" {
+		b.WriteString("." + frac)
+	}
+	return b.String()
 }
 
 // fixed3 formats with three decimals, for SMDs, ratios and distances.

@@ -86,12 +86,20 @@ func loadReport(path string) (*aggregate.Report, error) {
 		return nil, err
 	}
 	var probe struct {
-		ReportVersion *int `json:"report_version"`
+		ReportVersion *int   `json:"report_version"`
+		Format        string `json:"format"`
 	}
 	if err := json.Unmarshal(data, &probe); err != nil {
+		var te *json.UnmarshalTypeError
+		if errors.As(err, &te) && te.Field == "" {
+			err = fmt.Errorf("the top level is a JSON %s, not an object", te.Value)
+		}
 		return nil, fmt.Errorf("%s: not a heft state or report JSON: %w", path, err)
 	}
 	if probe.ReportVersion == nil {
+		if probe.Format != aggregate.StateFormat {
+			return nil, fmt.Errorf("%s: neither a report JSON (no \"report_version\") nor a state file (format %q); give the --report or --state file of 'heft score' or 'heft merge'", path, probe.Format)
+		}
 		s, err := aggregate.UnmarshalState(path, data)
 		if err != nil {
 			return nil, err
