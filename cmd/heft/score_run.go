@@ -69,7 +69,13 @@ type scoreRun struct {
 func (r *scoreRun) one(ctx context.Context, src pipeline.Source, in pipeline.Input, target string, state *aggregate.State, fold func(any) error) error {
 	f := r.f
 	schema := src.Schema()
-	enc, err := r.m.Encoding.Bind(schema, in.Path, r.m.Outcome != nil, f.unseen)
+	// The outcome is decoded when the table has it: a nightly table scored
+	// before its outcomes arrive still gets weights, balance and overlap.
+	withOutcome := r.m.Encoding.Outcome != nil && len(schema.FieldIndices(r.m.Encoding.Outcome.Column)) > 0
+	if r.m.Encoding.Outcome != nil && !withOutcome {
+		r.env.Logf("heft score: %s has no outcome column %q: weights and diagnostics only, no effect estimates", in.Path, r.m.Encoding.Outcome.Column)
+	}
+	enc, err := r.m.Encoding.Bind(schema, in.Path, withOutcome, f.unseen)
 	if err != nil {
 		return err
 	}
