@@ -5,12 +5,15 @@ import (
 	"math/rand/v2"
 	"testing"
 
+	"github.com/apache/arrow-go/v18/arrow"
+	"github.com/apache/arrow-go/v18/arrow/array"
+	"github.com/apache/arrow-go/v18/arrow/memory"
 	"github.com/heft-project/heft/fit"
 	"github.com/heft-project/heft/score"
 )
 
 // benchInput is an invented 65536-row batch of 20 terms (demo data).
-func benchInput(b *testing.B, outcome bool) (*State, *fit.Batch, *score.Scores) {
+func benchInput(b *testing.B, outcome, segments bool) (*State, arrow.RecordBatch, *fit.Batch, *score.Scores) {
 	const n, p = 65536, 20
 	rng := rand.New(rand.NewPCG(3, 4))
 	terms := []string{"intercept"}
@@ -51,29 +54,51 @@ func benchInput(b *testing.B, outcome bool) (*State, *fit.Batch, *score.Scores) 
 		g := fit.GLM{Family: fit.FamilyGaussian, Terms: terms, Coef: make([]float64, p+1)}
 		m.Outcome = &fit.OutcomeModels{Kind: "continuous", Treated: g, Control: g}
 	}
-	s, err := New(Config{Model: m, Policy: score.Policy{Estimand: score.ATE}}, nil)
+	cfg := Config{Model: m, Policy: score.Policy{Estimand: score.ATE}}
+	var rec arrow.RecordBatch
+	if segments {
+		sb := array.NewStringBuilder(memory.DefaultAllocator)
+		for i := 0; i < n; i++ {
+			sb.Append(fmt.Sprintf("segment-%02d", rng.IntN(16)))
+		}
+		col := sb.NewArray()
+		sb.Release()
+		schema := arrow.NewSchema([]arrow.Field{{Name: "seg", Type: arrow.BinaryTypes.String}}, nil)
+		rec = array.NewRecordBatch(schema, []arrow.Array{col}, int64(n))
+		col.Release()
+		b.Cleanup(rec.Release)
+		cfg.By = []string{"seg"}
+	}
+	s, err := New(cfg, recSchema(rec))
 	if err != nil {
 		b.Fatal(err)
 	}
-	return s, bt, sc
+	return s, rec, bt, sc
+}
+
+func recSchema(rec arrow.RecordBatch) *arrow.Schema {
+	if rec == nil {
+		return nil
+	}
+	return rec.Schema()
 }
 
 // BenchmarkStateAdd measures Add on one 65536-row, 20-term batch, the way
 // the engine calls it: a fresh State per batch, merged into the run's.
 // "balance" has no outcome (balance, overlap, drift only); "outcome" adds
-// the effect estimates.
+// the effect estimates; "segments" adds 16 segments of one string column.
 func BenchmarkStateAdd(b *testing.B) {
 	for _, c := range []struct {
-		name    string
-		outcome bool
-	}{{"balance", false}, {"outcome", true}} {
+		name              string
+		outcome, segments bool
+	}{{"balance", false, false}, {"outcome", true, false}, {"segments", true, true}} {
 		b.Run(c.name, func(b *testing.B) {
-			run, bt, sc := benchInput(b, c.outcome)
+			run, rec, bt, sc := benchInput(b, c.outcome, c.segments)
 			b.ReportAllocs()
 			b.ResetTimer()
 			for i := 0; i < b.N; i++ {
 				s := run.Empty()
-				if err := s.Add(nil, bt, sc); err != nil {
+				if err := s.Add(rec, bt, sc); err != nil {
 					b.Fatal(err)
 				}
 				if err := run.Merge(s); err != nil {

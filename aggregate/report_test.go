@@ -120,3 +120,24 @@ func TestReportWarnings(t *testing.T) {
 		}
 	}
 }
+
+// TestEmptyReport checks that a run without rows still writes both forms,
+// with null for every undefined figure.
+func TestEmptyReport(t *testing.T) {
+	fx := loadFixture(t)
+	s, err := New(fx.config(score.ATT), fixtureSchema)
+	if err != nil {
+		t.Fatal(err)
+	}
+	r := s.Report()
+	var j, txt bytes.Buffer
+	if err := r.WriteJSON(&j); err != nil {
+		t.Fatal(err)
+	}
+	if err := r.WriteText(&txt); err != nil {
+		t.Fatal(err)
+	}
+	if !strings.Contains(j.String(), `"psi": null`) || !strings.Contains(txt.String(), "No treated rows") {
+		t.Errorf("empty report:\n%s\n%s", j.String(), txt.String())
+	}
+}

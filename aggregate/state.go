@@ -257,7 +257,8 @@ func (s *State) Policy() score.Policy { return s.sh.policy }
 
 // Add folds one scored batch in. rec is needed only for the By columns.
 // Rows with a null treatment are counted and left out of everything else.
-// Add keeps no reference to rec, b or sc.
+// Add keeps no reference to rec, b or sc. After an error the State may hold
+// part of the batch: the run is to be abandoned.
 func (s *State) Add(rec arrow.RecordBatch, b *fit.Batch, sc *score.Scores) error {
 	sh := s.sh
 	n := b.N
