@@ -9,6 +9,7 @@ import (
 	"strconv"
 	"strings"
 	"text/tabwriter"
+	"unicode/utf8"
 
 	"github.com/heft-project/heft/score"
 )
@@ -485,7 +486,7 @@ func (r *Report) WriteText(w io.Writer) error {
 
 	p("Estimates (95%% confidence intervals)\n")
 	tw := tabwriter.NewWriter(ew, 0, 0, 2, ' ', tabwriter.AlignRight)
-	fmt.Fprintf(tw, "estimand\testimator\testimate\tSE\tSE (model)\t95%% CI\t\n")
+	fmt.Fprintf(tw, "%-8s\t%-9s\testimate\tSE\tSE (model)\t95%% CI\t\n", "estimand", "estimator")
 	n := 0
 	for _, estimand := range score.Estimands {
 		byEst, ok := r.Estimates[estimand]
@@ -494,7 +495,7 @@ func (r *Report) WriteText(w io.Writer) error {
 		}
 		for _, name := range sortedEstimators(byEst) {
 			e := byEst[name]
-			fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t[%s, %s]\t\n", estimand, name, fmtG(float64(e.Estimate)), fmtG(float64(e.SE)),
+			fmt.Fprintf(tw, "%-8s\t%-9s\t%s\t%s\t%s\t[%s, %s]\t\n", estimand, name, fmtG(float64(e.Estimate)), fmtG(float64(e.SE)),
 				fmtG(float64(e.SEWithModelUncertainty)), fmtG(float64(e.CILow)), fmtG(float64(e.CIHigh)))
 			n++
 		}
@@ -509,9 +510,13 @@ func (r *Report) WriteText(w io.Writer) error {
 
 	p("Balance (%s weights; SMD denominator from unweighted variances)\n", strings.ToUpper(r.Estimand))
 	tw = tabwriter.NewWriter(ew, 0, 0, 2, ' ', tabwriter.AlignRight)
-	fmt.Fprintf(tw, "term\tmean T\tmean C\tmean T (w)\tmean C (w)\tSMD\tSMD (w)\tvar ratio (w)\tKS (w)\t\n")
+	termW := width("term")
 	for _, b := range r.Balance {
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t\n", b.Term,
+		termW = max(termW, width(b.Term))
+	}
+	fmt.Fprintf(tw, "%s\tmean T\tmean C\tmean T (w)\tmean C (w)\tSMD\tSMD (w)\tvar ratio (w)\tKS (w)\t\n", pad("term", termW))
+	for _, b := range r.Balance {
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t\n", pad(b.Term, termW),
 			fmtG(float64(b.MeanTreated)), fmtG(float64(b.MeanControl)),
 			fmtG(float64(b.MeanTreatedWeighted)), fmtG(float64(b.MeanControlWeighted)),
 			fmtF(float64(b.SMDUnweighted)), fmtF(float64(b.SMDWeighted)),
@@ -522,7 +527,7 @@ func (r *Report) WriteText(w io.Writer) error {
 	o := &r.Overlap
 	p("\nOverlap\n")
 	tw = tabwriter.NewWriter(ew, 0, 0, 2, ' ', tabwriter.AlignRight)
-	fmt.Fprintf(tw, "arm\trows\te < 0.01\te > 0.99\ttop %d weights' share\tlargest weight\t\n", topK)
+	fmt.Fprintf(tw, "arm    \trows\te < 0.01\te > 0.99\ttop %d weights' share\tlargest weight\t\n", topK)
 	largest := func(l []WeightShare) string {
 		if len(l) == 0 {
 			return "-"
@@ -538,7 +543,21 @@ func (r *Report) WriteText(w io.Writer) error {
 	if len(r.Segments) > 0 {
 		p("\nSegments by %s\n", strings.Join(r.By, ", "))
 		tw = tabwriter.NewWriter(ew, 0, 0, 2, ' ', tabwriter.AlignRight)
-		fmt.Fprintf(tw, "%s\trows\ttreated\tcontrol\tESS T\tESS C\tmax |SMD| (w)\testimate (%s)\t95%% CI\t\n", strings.Join(r.By, "\t"), r.Estimand)
+		widths := make([]int, len(r.By))
+		for k, c := range r.By {
+			widths[k] = width(c)
+			for _, g := range r.Segments {
+				widths[k] = max(widths[k], width(g.values[k]))
+			}
+		}
+		left := func(vals []string) string {
+			cells := make([]string, len(vals))
+			for k, v := range vals {
+				cells[k] = pad(v, widths[k])
+			}
+			return strings.Join(cells, "\t")
+		}
+		fmt.Fprintf(tw, "%s\trows\ttreated\tcontrol\tESS T\tESS C\tmax |SMD| (w)\testimate (%s)\t95%% CI\t\n", left(r.By), r.Estimand)
 		for _, g := range r.Segments {
 			est, ci := "suppressed", ""
 			if !g.Suppressed {
@@ -548,7 +567,7 @@ func (r *Report) WriteText(w io.Writer) error {
 					ci = "[" + fmtG(float64(e.CILow)) + ", " + fmtG(float64(e.CIHigh)) + "]"
 				}
 			}
-			fmt.Fprintf(tw, "%s\t%d\t%d\t%d\t%s\t%s\t%s\t%s\t%s\t\n", strings.Join(g.values, "\t"), g.Rows, g.Treated, g.Control,
+			fmt.Fprintf(tw, "%s\t%d\t%d\t%d\t%s\t%s\t%s\t%s\t%s\t\n", left(g.values), g.Rows, g.Treated, g.Control,
 				fmtG(float64(g.ESS.Treated)), fmtG(float64(g.ESS.Control)), fmtF(float64(g.MaxAbsSMDWeighted)), est, ci)
 		}
 		tw.Flush()
@@ -627,6 +646,13 @@ func fmtPct(v float64) string {
 	}
 	return strconv.FormatFloat(100*v, 'f', 1, 64) + "%"
 }
+
+// width is a string's width in a terminal, counting runes. pad fills it
+// with spaces to n: tabwriter aligns every column right, so the text
+// columns are padded to be read left-aligned.
+func width(s string) int { return utf8.RuneCountInString(s) }
+
+func pad(s string, n int) string { return s + strings.Repeat(" ", max(n-width(s), 0)) }
 
 // errWriter keeps the first write error so the text writer can check once.
 type errWriter struct {
