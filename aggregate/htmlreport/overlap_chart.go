@@ -164,7 +164,11 @@ func (h *tailHatch) Plot(c draw.Canvas, p *plot.Plot) {
 		hatch(&c, line, x(0), c.Min.Y, x(cut), c.Max.Y)
 		hatch(&c, line, x(1-cut), c.Min.Y, x(1), c.Max.Y)
 	}
-	// Positivity tails e < 0.01 and e > 0.99, exact counts per arm.
+	// Positivity tails e < 0.01 and e > 0.99, marked and counted per arm.
+	dots := draw.LineStyle{Color: colMuted, Width: vg.Points(0.8), Dashes: []vg.Length{vg.Points(1), vg.Points(2)}}
+	for _, e := range []float64{0.01, 0.99} {
+		c.StrokeLine2(dots, x(e), c.Min.Y, x(e), c.Max.Y)
+	}
 	lab.YAlign = draw.YTop
 	lab.XAlign = draw.XLeft
 	left := x(math.Max(cut, 0)) + vg.Points(5)
