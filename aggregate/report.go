@@ -163,8 +163,15 @@ type SegmentReport struct {
 	Estimates         map[string]map[string]EstimateReport `json:"estimates,omitempty"`
 	ESS               Arms                                 `json:"ess"`
 	MaxAbsSMDWeighted Float                                `json:"max_abs_smd_weighted"`
+}
 
-	values []string
+// values are the segment's values in the order of by.
+func (g *SegmentReport) values(by []string) []string {
+	v := make([]string, len(by))
+	for k, c := range by {
+		v[k] = g.By[c]
+	}
+	return v
 }
 
 // Report is everything a run found, ready for JSON (schema.md) or text.
@@ -345,8 +352,7 @@ func segmentReport(sh *shared, g *segment) SegmentReport {
 	r := SegmentReport{
 		By:   make(map[string]string, len(vals)),
 		Rows: g.Rows, Treated: g.N[1], Control: g.N[0], NullTreatment: g.NullTreatment,
-		ESS:    Arms{Treated: Float(g.ess(1)), Control: Float(g.ess(0))},
-		values: vals,
+		ESS: Arms{Treated: Float(g.ess(1)), Control: Float(g.ess(0))},
 	}
 	for i, c := range sh.set.By {
 		r.By[c] = vals[i]
@@ -547,7 +553,7 @@ func (r *Report) WriteText(w io.Writer) error {
 		for k, c := range r.By {
 			widths[k] = width(c)
 			for _, g := range r.Segments {
-				widths[k] = max(widths[k], width(g.values[k]))
+				widths[k] = max(widths[k], width(g.By[c]))
 			}
 		}
 		left := func(vals []string) string {
@@ -567,7 +573,7 @@ func (r *Report) WriteText(w io.Writer) error {
 					ci = "[" + fmtG(float64(e.CILow)) + ", " + fmtG(float64(e.CIHigh)) + "]"
 				}
 			}
-			fmt.Fprintf(tw, "%s\t%d\t%d\t%d\t%s\t%s\t%s\t%s\t%s\t\n", left(g.values), g.Rows, g.Treated, g.Control,
+			fmt.Fprintf(tw, "%s\t%d\t%d\t%d\t%s\t%s\t%s\t%s\t%s\t\n", left(g.values(r.By)), g.Rows, g.Treated, g.Control,
 				fmtG(float64(g.ESS.Treated)), fmtG(float64(g.ESS.Control)), fmtF(float64(g.MaxAbsSMDWeighted)), est, ci)
 		}
 		tw.Flush()

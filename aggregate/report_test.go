@@ -73,9 +73,23 @@ func TestReportJSON(t *testing.T) {
 	if m["caution"] != Caution {
 		t.Error("no caution")
 	}
+	// a report read back from its JSON writes the same text
 	var back Report
 	if err := json.Unmarshal(buf.Bytes(), &back); err != nil {
 		t.Fatalf("report does not read back: %v", err)
+	}
+	var t1, t2 bytes.Buffer
+	if err := r.WriteText(&t1); err != nil {
+		t.Fatal(err)
+	}
+	if err := back.WriteText(&t2); err != nil {
+		t.Fatal(err)
+	}
+	if t1.String() != t2.String() {
+		t.Errorf("text from the JSON differs:\n%s\nvs\n%s", t2.String(), t1.String())
+	}
+	if back.Failed() != r.Failed() {
+		t.Error("gate result lost in JSON")
 	}
 }
 
