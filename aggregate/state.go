@@ -85,8 +85,8 @@ type scratch struct {
 type accum struct {
 	Whole       cell  `json:"whole"`
 	NullOutcome int64 `json:"null_outcome"`
-	// BadWeight counts rows with a treatment but no finite weight; they are
-	// left out of the weighted figures.
+	// BadWeight counts rows with a treatment but no finite weight (or one
+	// whose square overflows); they are left out of the weighted figures.
 	BadWeight int64            `json:"bad_weight"`
 	Clipped   int64            `json:"clipped"`
 	Trimmed   int64            `json:"trimmed"`
@@ -292,7 +292,7 @@ func (s *State) Add(rec arrow.RecordBatch, b *fit.Batch, sc *score.Scores) error
 		}
 		arm[i] = t
 		wi := sc.W[i]
-		if t >= 0 && !(sc.WValid[i] && wi >= 0 && wi <= math.MaxFloat64) {
+		if t >= 0 && !(sc.WValid[i] && wi >= 0 && wi <= maxMagnitude) {
 			a.BadWeight++
 			wi = 0
 		}
@@ -325,6 +325,10 @@ func (s *State) Add(rec arrow.RecordBatch, b *fit.Batch, sc *score.Scores) error
 	return nil
 }
 
+// maxMagnitude bounds term values and weights: their squares are summed,
+// and a square above the largest float would turn every figure into NaN.
+const maxMagnitude = 1.3407807929942596e154 // sqrt(math.MaxFloat64)
+
 // checkBatch refuses a batch whose buffers do not match, or that carries a
 // term that is not finite (naming the term and the batch row).
 func checkBatch(sh *shared, b *fit.Batch, sc *score.Scores) error {
@@ -345,17 +349,17 @@ func checkBatch(sh *shared, b *fit.Batch, sc *score.Scores) error {
 		return errors.New("aggregate: outcome predictions are missing or shorter than the batch")
 	}
 	for j, col := range b.X {
-		var sum float64
+		var sum2 float64
 		for _, v := range col[:n] {
-			sum += v
+			sum2 += v * v
 		}
-		if sum-sum == 0 { // finite
+		if sum2 <= math.MaxFloat64 { // finite, and so is every square
 			continue
 		}
 		for i, v := range col[:n] {
-			if math.IsNaN(v) || math.IsInf(v, 0) {
+			if !(math.Abs(v) <= maxMagnitude) {
 				return &pipeline.Error{RowGroup: -1, Row: -1, Column: sh.terms[j],
-					Err: fmt.Errorf("batch row %d: term value %v is not finite", i, v)}
+					Err: fmt.Errorf("batch row %d: term value %v is not finite or too large to square (|x| > %.3g)", i, v, maxMagnitude)}
 			}
 		}
 	}

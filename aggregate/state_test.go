@@ -378,3 +378,21 @@ func TestNullTreatmentLeftOut(t *testing.T) {
 		t.Errorf("rows %d, null treatment %d, arms %d+%d", rb.Rows, rb.NullTreatment, rb.Treated, rb.Control)
 	}
 }
+
+// TestHugeWeight checks that a weight whose square overflows is left out
+// and counted, so the state still writes.
+func TestHugeWeight(t *testing.T) {
+	fx := loadFixture(t)
+	s, _ := New(fx.config(score.ATE), fixtureSchema)
+	p := fx.part(t, score.ATE, 0, 100)
+	i := slices.Index(p.b.T, 1)
+	p.s.W[i] = 1e300
+	feed(t, s, []*part{p})
+	r := s.Report()
+	if r.Overlap.WithoutWeight != 1 || math.IsNaN(float64(r.ESS.Treated)) {
+		t.Errorf("rows without weight %d, ESS %v", r.Overlap.WithoutWeight, r.ESS.Treated)
+	}
+	if _, err := s.MarshalJSON(); err != nil {
+		t.Error(err)
+	}
+}
