@@ -79,7 +79,8 @@ type gateView struct {
 }
 
 type effectRow struct {
-	Estimand, EstimandKey, Estimator, EstimatorKey    string
+	Estimand, EstimandKey, EstimandName               string
+	Estimator, EstimatorKey                           string
 	Estimate, SE, SEModel, CILow, CIHigh, Run, RowCls string
 }
 
@@ -308,7 +309,7 @@ func newView(r *aggregate.Report, f figures, opt Options) *view {
 		for _, name := range estimatorOrder(byEst) {
 			e := byEst[name]
 			row := effectRow{
-				Estimand: strings.ToUpper(est), EstimandKey: est, Estimator: estimatorLabel(name), EstimatorKey: name,
+				Estimand: strings.ToUpper(est), EstimandKey: est, EstimandName: estimandText[est].Name, Estimator: estimatorLabel(name), EstimatorKey: name,
 				Estimate: num(f64(e.Estimate)), SE: num(f64(e.SE)), SEModel: num(f64(e.SEWithModelUncertainty)),
 				CILow: num(f64(e.CILow)), CIHigh: num(f64(e.CIHigh)),
 			}
