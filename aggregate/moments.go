@@ -1,6 +1,9 @@
 package aggregate
 
-import "math"
+import (
+	"encoding/json"
+	"math"
+)
 
 // Moments summarize a sample by its total weight, mean and sum of squared
 // deviations. Unweighted samples use weight 1 per row, so W is the count.
@@ -109,4 +112,37 @@ func armMoments(x []float64, rows *arms, w []float64, u, wt *[2]Moments) {
 			wt[a] = Moments{}
 		}
 	}
+}
+
+// MarshalJSON writes {"w", "mean", "m2"} as Sum does its numbers.
+func (m Moments) MarshalJSON() ([]byte, error) {
+	b := make([]byte, 0, 80)
+	b = append(b, `{"w":`...)
+	b = appendNumber(b, m.W)
+	b = append(b, `,"mean":`...)
+	b = appendNumber(b, m.Mean)
+	b = append(b, `,"m2":`...)
+	b = appendNumber(b, m.M2)
+	return append(b, '}'), nil
+}
+
+// UnmarshalJSON reads what MarshalJSON writes.
+func (m *Moments) UnmarshalJSON(data []byte) error {
+	var raw struct {
+		W    json.RawMessage `json:"w"`
+		Mean json.RawMessage `json:"mean"`
+		M2   json.RawMessage `json:"m2"`
+	}
+	if err := json.Unmarshal(data, &raw); err != nil {
+		return err
+	}
+	var err error
+	if m.W, err = parseNumber(raw.W); err != nil {
+		return err
+	}
+	if m.Mean, err = parseNumber(raw.Mean); err != nil {
+		return err
+	}
+	m.M2, err = parseNumber(raw.M2)
+	return err
 }

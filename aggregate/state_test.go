@@ -392,7 +392,5 @@ func TestHugeWeight(t *testing.T) {
 	if r.Overlap.WithoutWeight != 1 || math.IsNaN(float64(r.ESS.Treated)) {
 		t.Errorf("rows without weight %d, ESS %v", r.Overlap.WithoutWeight, r.ESS.Treated)
 	}
-	if _, err := s.MarshalJSON(); err != nil {
-		t.Error(err)
-	}
+	roundTrip(t, s) // writes, reads back and writes the same bytes
 }

@@ -1,6 +1,11 @@
 package aggregate
 
-import "math"
+import (
+	"encoding/json"
+	"fmt"
+	"math"
+	"strconv"
+)
 
 // Sum is a running sum with Neumaier's compensation (Neumaier 1974,
 // "Rundungsfehleranalyse einiger Verfahren zur Summation endlicher Summen",
@@ -33,3 +38,63 @@ func (s *Sum) Merge(o Sum) {
 
 // Value is the compensated total S + C.
 func (s Sum) Value() float64 { return s.S + s.C }
+
+// MarshalJSON writes {"s": S, "c": C}. Numbers are in their shortest exact
+// form; a non-finite one (from overflowing input) is written as the string
+// "NaN", "+Inf" or "-Inf", so a state always writes and reads back as it was.
+func (s Sum) MarshalJSON() ([]byte, error) {
+	b := make([]byte, 0, 56)
+	b = append(b, `{"s":`...)
+	b = appendNumber(b, s.S)
+	b = append(b, `,"c":`...)
+	b = appendNumber(b, s.C)
+	return append(b, '}'), nil
+}
+
+// UnmarshalJSON reads what MarshalJSON writes.
+func (s *Sum) UnmarshalJSON(data []byte) error {
+	var raw struct {
+		S json.RawMessage `json:"s"`
+		C json.RawMessage `json:"c"`
+	}
+	if err := json.Unmarshal(data, &raw); err != nil {
+		return err
+	}
+	var err error
+	if s.S, err = parseNumber(raw.S); err != nil {
+		return err
+	}
+	s.C, err = parseNumber(raw.C)
+	return err
+}
+
+func appendNumber(b []byte, f float64) []byte {
+	switch {
+	case math.IsNaN(f):
+		return append(b, `"NaN"`...)
+	case math.IsInf(f, 1):
+		return append(b, `"+Inf"`...)
+	case math.IsInf(f, -1):
+		return append(b, `"-Inf"`...)
+	}
+	return strconv.AppendFloat(b, f, 'g', -1, 64)
+}
+
+func parseNumber(raw json.RawMessage) (float64, error) {
+	if len(raw) == 0 {
+		return 0, nil
+	}
+	switch string(raw) {
+	case `"NaN"`:
+		return math.NaN(), nil
+	case `"+Inf"`:
+		return math.Inf(1), nil
+	case `"-Inf"`:
+		return math.Inf(-1), nil
+	}
+	f, err := strconv.ParseFloat(string(raw), 64)
+	if err != nil {
+		return 0, fmt.Errorf("not a number: %s", raw)
+	}
+	return f, nil
+}
