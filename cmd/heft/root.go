@@ -76,6 +76,7 @@ correctly specified models; decisions about people need domain review.`,
 		newInspectCmd(env),
 		newScoreCmd(env),
 		newMergeCmd(env),
+		newReportCmd(env),
 	)
 	return root
 }
