@@ -88,3 +88,72 @@ func TestAddAllocations(t *testing.T) {
 		t.Errorf("Add allocates %v times per 5000-row batch", allocs)
 	}
 }
+
+// subset is the fixture's rows idx, in order.
+func (fx *fixture) subset(idx []int) *fixture {
+	s := &fixture{n: len(idx), x: make([][]float64, len(fx.x)), ref: fx.ref}
+	for _, i := range idx {
+		for j := range fx.x {
+			s.x[j] = append(s.x[j], fx.x[j][i])
+		}
+		s.t = append(s.t, fx.t[i])
+		s.y = append(s.y, fx.y[i])
+		s.yValid = append(s.yValid, fx.yValid[i])
+		s.e = append(s.e, fx.e[i])
+		s.mu0 = append(s.mu0, fx.mu0[i])
+		s.mu1 = append(s.mu1, fx.mu1[i])
+		s.region = append(s.region, fx.region[i])
+	}
+	return s
+}
+
+// TestSegmentIsItsOwnRun checks that a segment's figures equal those of a
+// run over the segment's rows alone: the gathering of rows loses nothing.
+func TestSegmentIsItsOwnRun(t *testing.T) {
+	fx := loadFixture(t)
+	for _, estimand := range []string{score.ATE, score.Overlap} {
+		s, err := New(fx.config(estimand), fixtureSchema)
+		if err != nil {
+			t.Fatal(err)
+		}
+		feed(t, s, fx.parts(t, estimand, []int{1234, 3000}))
+		r := s.Report()
+		for _, g := range r.Segments {
+			var idx []int
+			for i, v := range fx.region {
+				if v == g.By["region"] || (v == "" && g.By["region"] == NullValue) {
+					idx = append(idx, i)
+				}
+			}
+			sub := fx.subset(idx)
+			cfg := sub.config(estimand)
+			cfg.By = nil
+			alone, err := New(cfg, nil)
+			if err != nil {
+				t.Fatal(err)
+			}
+			feed(t, alone, []*part{sub.part(t, estimand, 0, sub.n)})
+			want := alone.Report()
+			if g.Rows != want.Rows || g.Treated != want.Treated || g.Control != want.Control || g.NullTreatment != want.NullTreatment {
+				t.Errorf("%s: counts %d/%d/%d/%d, alone %d/%d/%d/%d", g.By["region"], g.Rows, g.Treated, g.Control, g.NullTreatment,
+					want.Rows, want.Treated, want.Control, want.NullTreatment)
+			}
+			near(t, g.By["region"]+" ess treated", g.ESS.Treated, float64(want.ESS.Treated), 1e-12)
+			near(t, g.By["region"]+" ess control", g.ESS.Control, float64(want.ESS.Control), 1e-12)
+			if g.Suppressed {
+				continue
+			}
+			for est, m := range want.Estimates {
+				for name, w := range m {
+					got, ok := g.Estimates[est][name]
+					if !ok {
+						t.Errorf("%s: no %s/%s", g.By["region"], est, name)
+						continue
+					}
+					near(t, g.By["region"]+" "+est+"/"+name+" estimate", got.Estimate, float64(w.Estimate), 1e-12)
+					near(t, g.By["region"]+" "+est+"/"+name+" se", got.SE, float64(w.SE), 1e-12)
+				}
+			}
+		}
+	}
+}
