@@ -67,6 +67,9 @@ func runDemo(ctx context.Context, env *Env, f *demoFlags) error {
 			"--outcome", scenario.ColOutcome, "--sample-rows", fmt.Sprint(f.sampleRows), "--seed", fmt.Sprint(f.seed), data},
 		{"score", "--model", model, "-o", filepath.Join(f.dir, "scored.parquet"), "--estimand", "ate", "--predictions",
 			"--state", filepath.Join(f.dir, "state.json"), "--report", filepath.Join(f.dir, "report.json"), data},
+		{"report", "-o", filepath.Join(f.dir, "report.html"), "--title", "Home energy audit (invented demo data)",
+			"--treatment", "the audit", "--outcome", "next-winter gas use", "--unit", "kWh", "--population", "households",
+			filepath.Join(f.dir, "report.json")},
 	}
 	if len(paths) > 1 {
 		steps[1][4] = filepath.Join(f.dir, "scored") + string(filepath.Separator)
@@ -126,5 +129,6 @@ func demoVerdict(env *Env, dir string, truth *scenario.Truth) error {
 		}
 	}
 	env.Logf("\nheft demo: files in %s: demo data, truth.json, model.json, scored table, state.json, report.json", dir)
+	env.Logf("heft demo: open %s in a browser for the report with charts", filepath.Join(dir, "report.html"))
 	return nil
 }
