@@ -265,8 +265,11 @@ func (s *State) Add(rec arrow.RecordBatch, b *fit.Batch, sc *score.Scores) error
 	if err := checkBatch(sh, b, sc); err != nil {
 		return err
 	}
-	x := s.sh.pool.Get().(*scratch)
-	defer sh.pool.Put(x)
+	x := sh.pool.Get().(*scratch)
+	defer func() {
+		clear(x.cols) // keep no reference to the batch's columns
+		sh.pool.Put(x)
+	}()
 
 	var segCols []arrow.Array
 	if sh.seg != nil {
