@@ -246,14 +246,30 @@ func share(v Float, n int64) Float {
 	return v / Float(n)
 }
 
+// fmtCount writes an effective count to the nearest unit.
+func fmtCount(v float64) string {
+	if math.IsNaN(v) || math.IsInf(v, 0) {
+		return "-"
+	}
+	return strconv.FormatFloat(math.Round(v), 'f', 0, 64)
+}
+
+// estimates converts the effect estimates for the report, leaving out the
+// undefined ones (an estimate that is not a finite number: no outcome
+// values, or an empty arm), as the schema promises.
 func estimates(e map[string]map[string]Estimate) map[string]map[string]EstimateReport {
 	out := map[string]map[string]EstimateReport{}
 	for estimand, byEst := range e {
 		m := map[string]EstimateReport{}
 		for name, v := range byEst {
+			if math.IsNaN(v.Estimate) || math.IsInf(v.Estimate, 0) {
+				continue
+			}
 			m[name] = EstimateReport{Float(v.Estimate), Float(v.SE), Float(v.SEWithModelUncertainty), Float(v.CILow), Float(v.CIHigh)}
 		}
-		out[estimand] = m
+		if len(m) > 0 {
+			out[estimand] = m
+		}
 	}
 	return out
 }
@@ -511,8 +527,8 @@ func (r *Report) WriteText(w io.Writer) error {
 		p("  (none: no outcome, or an arm without rows)\n")
 	}
 	p("\nEffective sample size (Kish)  treated %s of %d (%s), control %s of %d (%s)\n\n",
-		fmtG(float64(r.ESS.Treated)), r.Treated, fmtPct(float64(r.ESSShare.Treated)),
-		fmtG(float64(r.ESS.Control)), r.Control, fmtPct(float64(r.ESSShare.Control)))
+		fmtCount(float64(r.ESS.Treated)), r.Treated, fmtPct(float64(r.ESSShare.Treated)),
+		fmtCount(float64(r.ESS.Control)), r.Control, fmtPct(float64(r.ESSShare.Control)))
 
 	p("Balance (%s weights; SMD denominator from unweighted variances)\n", strings.ToUpper(r.Estimand))
 	tw = tabwriter.NewWriter(ew, 0, 0, 2, ' ', tabwriter.AlignRight)
