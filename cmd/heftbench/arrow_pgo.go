@@ -15,8 +15,8 @@ import (
 
 // copyArrowToParquetGo reads with pqarrow and writes with parquet-go, fed
 // column by column from the Arrow arrays (one goroutine).
-func copyArrowToParquetGo(in, out string, batch int64, par bool, rg int64) (int64, error) {
-	pr, rr, err := openArrow(in, batch, par)
+func copyArrowToParquetGo(in, out string, ro readOpts, rg int64) (int64, error) {
+	pr, rr, err := openArrow(in, ro)
 	if err != nil {
 		return 0, err
 	}

@@ -19,13 +19,13 @@ func runCmp(args []string) error {
 		return err
 	}
 	const batch = 65536 // same batch size on both sides, so batches line up
-	pa, ra, err := openArrow(*a, batch, false)
+	pa, ra, err := openArrow(*a, readOpts{batch: batch})
 	if err != nil {
 		return err
 	}
 	defer pa.Close()
 	defer ra.Release()
-	pb, rb, err := openArrow(*b, batch, false)
+	pb, rb, err := openArrow(*b, readOpts{batch: batch})
 	if err != nil {
 		return err
 	}

@@ -30,6 +30,7 @@ func runCopy(args []string) error {
 	path := fs.String("path", "pqarrow", "pqarrow (heft's sink and engine), pqarrow-plain (pqarrow FileWriter, one goroutine), parquet-go (CopyRows), parquet-go-rg (WriteRowGroup), arrow-parquet-go (pqarrow read, parquet-go write)")
 	batch := fs.Int64("batch", 65536, "rows per batch read (pqarrow paths)")
 	readPar := fs.Bool("readpar", false, "decode the columns of a batch in parallel (pqarrow paths)")
+	readDict := fs.Bool("readdict", false, "read string columns as Arrow dictionaries (pqarrow paths)")
 	workers := fs.Int("workers", 0, "pqarrow: columns encoded at once (0 = GOMAXPROCS)")
 	engineWorkers := fs.Int("engine-workers", 1, "pqarrow: engine workers (identity transform)")
 	depth := fs.Int("depth", 0, "pqarrow: engine queue depth (0 = 2*workers)")
@@ -54,19 +55,20 @@ func runCopy(args []string) error {
 		}
 		defer pprof.StopCPUProfile()
 	}
+	ro := readOpts{batch: *batch, par: *readPar, dict: *readDict}
 	start := time.Now()
 	var rows int64
 	var err error
 	switch *path {
 	case "pqarrow":
-		rows, err = copyHeft(*in, *out, *batch, *readPar, pipeline.ParquetSinkOptions{
+		rows, err = copyHeft(*in, *out, ro, pipeline.ParquetSinkOptions{
 			RowGroupRows: *rg, Workers: *workers, Dictionary: *dict, DataPageSize: *page,
 			NoStatistics: *noStats, NoArrowSchema: *noSchema, CreatedBy: "heftbench",
 		}, pipeline.EngineOptions{Workers: *engineWorkers, QueueDepth: *depth, Progress: heapAt(*memprof, 1_000_000)})
 	case "pqarrow-plain":
-		rows, err = copyPqarrowPlain(*in, *out, *batch, *readPar, *rg)
+		rows, err = copyPqarrowPlain(*in, *out, ro, *rg)
 	case "arrow-parquet-go":
-		rows, err = copyArrowToParquetGo(*in, *out, *batch, *readPar, *rg)
+		rows, err = copyArrowToParquetGo(*in, *out, ro, *rg)
 	case "parquet-go", "parquet-go-rg":
 		rows, err = copyParquetGo(*in, *out, *path == "parquet-go-rg", *rg)
 	default:
@@ -134,12 +136,28 @@ func (identity) Apply(_ context.Context, rec arrow.RecordBatch, _ pipeline.Locat
 	return rec, nil, nil
 }
 
-func openArrow(in string, batch int64, par bool) (*file.Reader, pqarrow.RecordReader, error) {
+// readOpts are the pqarrow read knobs.
+type readOpts struct {
+	batch int64
+	par   bool // decode a batch's columns in parallel
+	dict  bool // read byte-array columns as Arrow dictionaries
+}
+
+func openArrow(in string, ro readOpts) (*file.Reader, pqarrow.RecordReader, error) {
 	pr, err := file.OpenParquetFile(in, false)
 	if err != nil {
 		return nil, nil, err
 	}
-	fr, err := pqarrow.NewFileReader(pr, pqarrow.ArrowReadProperties{BatchSize: batch, Parallel: par}, memory.DefaultAllocator)
+	props := pqarrow.ArrowReadProperties{BatchSize: ro.batch, Parallel: ro.par}
+	if ro.dict {
+		sc := pr.MetaData().Schema
+		for i := range sc.NumColumns() {
+			if sc.Column(i).PhysicalType() == parquet.Types.ByteArray {
+				props.SetReadDict(i, true)
+			}
+		}
+	}
+	fr, err := pqarrow.NewFileReader(pr, props, memory.DefaultAllocator)
 	if err != nil {
 		pr.Close()
 		return nil, nil, err
@@ -152,8 +170,8 @@ func openArrow(in string, batch int64, par bool) (*file.Reader, pqarrow.RecordRe
 	return pr, rr, nil
 }
 
-func copyHeft(in, out string, batch int64, par bool, opt pipeline.ParquetSinkOptions, eopt pipeline.EngineOptions) (int64, error) {
-	pr, rr, err := openArrow(in, batch, par)
+func copyHeft(in, out string, ro readOpts, opt pipeline.ParquetSinkOptions, eopt pipeline.EngineOptions) (int64, error) {
+	pr, rr, err := openArrow(in, ro)
 	if err != nil {
 		return 0, err
 	}
@@ -176,8 +194,8 @@ func copyHeft(in, out string, batch int64, par bool, opt pipeline.ParquetSinkOpt
 	return rows, err
 }
 
-func copyPqarrowPlain(in, out string, batch int64, par bool, rg int64) (int64, error) {
-	pr, rr, err := openArrow(in, batch, par)
+func copyPqarrowPlain(in, out string, ro readOpts, rg int64) (int64, error) {
+	pr, rr, err := openArrow(in, ro)
 	if err != nil {
 		return 0, err
 	}
