@@ -1,7 +1,10 @@
 package pipeline
 
 import (
+	"bufio"
+	"bytes"
 	"context"
+	"encoding/binary"
 	"fmt"
 	"io"
 	"os"
@@ -180,6 +183,9 @@ func openArrowFile(path string, p *projection, opt SourceOptions) (Source, error
 	}
 	var r *ipc.FileReader
 	err = guard(path, func() (err error) {
+		if err := checkIPCFooter(f); err != nil {
+			return err
+		}
 		r, err = ipc.NewFileReader(f, ipc.WithAllocator(opt.alloc()))
 		return err
 	})
@@ -194,6 +200,69 @@ func openArrowFile(path string, p *projection, opt SourceOptions) (Source, error
 		return nil, err
 	}
 	return s, nil
+}
+
+// Standard input has no size to bound IPC messages by, so these do: real
+// metadata flatbuffers are kilobytes, and a record batch body over 4 GiB
+// should be sent as several batches.
+const (
+	maxStdinMetadata = 1 << 28
+	maxStdinBody     = 1 << 32
+)
+
+// checkIPCFooter checks the schema in an IPC file's footer before
+// ipc.NewFileReader decodes it (see checkSchemaFlatbuffer). A file without
+// a plausible footer is left for the reader to reject.
+func checkIPCFooter(f *os.File) error {
+	info, err := f.Stat()
+	if err != nil {
+		return err
+	}
+	const tail = 10 // int32 footer length, then "ARROW1"
+	size := info.Size()
+	if size < tail+8 {
+		return nil
+	}
+	var end [tail]byte
+	if _, err := f.ReadAt(end[:], size-tail); err != nil {
+		return err
+	}
+	n := int64(binary.LittleEndian.Uint32(end[:4]))
+	if string(end[4:]) != "ARROW1" || n <= 0 || n > size-tail-8 {
+		return nil
+	}
+	footer := make([]byte, n)
+	if _, err := f.ReadAt(footer, size-tail-n); err != nil {
+		return err
+	}
+	return checkSchemaFlatbuffer(footer, true)
+}
+
+// checkIPCStreamSchema reads the first message of an IPC stream, which must
+// be its schema, checks it (see checkSchemaFlatbuffer) and returns a reader
+// that yields the whole stream again. Messages longer than limit are
+// refused. A stream too short to frame a message is left for the reader.
+func checkIPCStreamSchema(r io.Reader, limit int64) (io.Reader, error) {
+	br := bufio.NewReader(r)
+	head, err := br.Peek(8)
+	if err != nil {
+		return br, nil
+	}
+	prefix, n := 8, int64(int32(binary.LittleEndian.Uint32(head[4:])))
+	if binary.LittleEndian.Uint32(head) != 0xFFFFFFFF { // before format 0.15
+		prefix, n = 4, int64(int32(binary.LittleEndian.Uint32(head)))
+	}
+	if n < 0 || n > limit {
+		return nil, fmt.Errorf("%w: Arrow IPC schema message claims %d bytes", ErrMalformed, n)
+	}
+	msg := make([]byte, int64(prefix)+n)
+	if _, err := io.ReadFull(br, msg); err != nil {
+		return nil, fmt.Errorf("%w: Arrow IPC schema message cut short: %w", ErrMalformed, err)
+	}
+	if err := checkIPCMessage(msg); err != nil {
+		return nil, err
+	}
+	return io.MultiReader(bytes.NewReader(msg), br), nil
 }
 
 // ipcStream reads the record batches of an Arrow IPC stream.
@@ -219,12 +288,14 @@ func (x *ipcStream) close() error {
 
 func openArrowStream(path string, p *projection, opt SourceOptions) (Source, error) {
 	var (
-		rd   io.Reader
-		c    io.Closer
-		opts = []ipc.Option{ipc.WithAllocator(opt.alloc())}
+		rd    io.Reader
+		c     io.Closer
+		opts  = []ipc.Option{ipc.WithAllocator(opt.alloc())}
+		limit = int64(maxStdinMetadata)
 	)
 	if path == Stdin {
 		rd = opt.stdin()
+		opts = append(opts, ipc.WithMetadataSizeLimit(maxStdinMetadata), ipc.WithBodySizeLimit(maxStdinBody))
 	} else {
 		f, err := os.Open(path)
 		if err != nil {
@@ -234,12 +305,17 @@ func openArrowStream(path string, p *projection, opt SourceOptions) (Source, err
 		// No message can be longer than the file: this keeps a damaged
 		// length from allocating gigabytes before the read fails.
 		if info, err := f.Stat(); err == nil {
-			opts = append(opts, ipc.WithMetadataSizeLimit(info.Size()), ipc.WithBodySizeLimit(info.Size()))
+			limit = info.Size()
+			opts = append(opts, ipc.WithMetadataSizeLimit(limit), ipc.WithBodySizeLimit(limit))
 		}
 	}
 	var r *ipc.Reader
 	err := guard(path, func() (err error) {
-		r, err = ipc.NewReader(rd, opts...)
+		if rd, err = checkIPCStreamSchema(rd, limit); err != nil {
+			return err
+		}
+		// ipc.NewReader ignores the size limits; its message reader does not.
+		r, err = ipc.NewReaderFromMessageReader(ipc.NewMessageReader(rd, opts...), opts...)
 		return err
 	})
 	if err != nil {

@@ -2,6 +2,7 @@ package pipeline
 
 import (
 	"context"
+	"encoding/base64"
 	"fmt"
 	"os"
 	"runtime"
@@ -57,6 +58,11 @@ func openParquet(path string, p *projection, opt SourceOptions) (Source, error) 
 			return err
 		}
 		s.pf = pf
+		if v := pf.MetaData().KeyValueMetadata().FindValue(arrowSchemaKey); v != nil {
+			if err := checkArrowSchemaEntry(*v); err != nil {
+				return fmt.Errorf("%s metadata: %w", arrowSchemaKey, err)
+			}
+		}
 		arrProps := pqarrow.ArrowReadProperties{BatchSize: s.batch}
 		if opt.readDict {
 			sc := pf.MetaData().Schema
@@ -122,6 +128,25 @@ func withoutNoFieldID(f arrow.Field) arrow.Field {
 	}
 	f.Metadata = arrow.NewMetadata(keys, vals)
 	return f
+}
+
+// checkArrowSchemaEntry checks the IPC schema message that Arrow writers
+// store, base64-encoded, in a Parquet file's ARROW:schema entry, decoding it
+// as pqarrow does. Undecodable text is left for pqarrow to report.
+func checkArrowSchemaEntry(v string) error {
+	var (
+		b   []byte
+		err error
+	)
+	if len(v)%4 == 0 {
+		b, err = base64.StdEncoding.DecodeString(v)
+	}
+	if len(b) == 0 || err != nil {
+		if b, err = base64.RawStdEncoding.DecodeString(v); err != nil {
+			return nil
+		}
+	}
+	return checkIPCMessage(b)
 }
 
 // openParquetFile opens path and reads its footer.
