@@ -1,8 +1,11 @@
 package main
 
 import (
+	"context"
+	"errors"
 	"fmt"
 	"slices"
+	"strings"
 	"time"
 
 	"github.com/spf13/cobra"
@@ -94,7 +97,7 @@ func runFit(cmd *cobra.Command, env *Env, f *fitFlags, args []string) error {
 	so := fit.SampleOptions{Treatment: f.treatment, Covariates: covs, Categorical: cats, Outcome: f.outcome, SampleRows: f.sampleRows, Seed: f.seed}
 	fr, err := fit.ReadSample(ctx, src, so)
 	if err != nil {
-		return err
+		return aboutInputs(args, err)
 	}
 	env.Logf("heft fit: read %s in %.1fs", describeInputs(ins), time.Since(start).Seconds())
 	m, e, t, err := fit.Fit(ctx, fr, fit.Options{
@@ -103,7 +106,7 @@ func runFit(cmd *cobra.Command, env *Env, f *fitFlags, args []string) error {
 		HeftVersion: Version, Inputs: inputPaths(ins), Now: time.Now().UTC(),
 	})
 	if err != nil {
-		return err
+		return aboutInputs(args, err)
 	}
 	m.Reference.WeightQuantiles = score.WeightQuantiles(e, t, m.Reference.ShareTreated)
 	if err := m.Save(f.out); err != nil {
@@ -114,6 +117,17 @@ func runFit(cmd *cobra.Command, env *Env, f *fitFlags, args []string) error {
 	}
 	env.Logf("heft fit: wrote %s in %.1fs", f.out, time.Since(start).Seconds())
 	return nil
+}
+
+// aboutInputs starts an error that names no file (a treatment without two
+// arms, a separation) with the inputs as given, so the one error line says
+// which table it is about.
+func aboutInputs(args []string, err error) error {
+	var pe *pipeline.Error
+	if err == nil || errors.As(err, &pe) || errors.Is(err, context.Canceled) {
+		return err
+	}
+	return fmt.Errorf("%s: %w", strings.Join(args, " "), err)
 }
 
 // refuseOverwrite refuses an output path that names one of the inputs.
