@@ -6,7 +6,6 @@ import (
 	"fmt"
 	"math"
 	"os"
-	"path/filepath"
 	"slices"
 	"sort"
 	"sync"
@@ -684,35 +683,10 @@ func (s *State) WriteFile(path string) error {
 	return writeAtomic(path, append(data, '\n'))
 }
 
-func writeAtomic(path string, data []byte) (err error) {
-	f, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".tmp-*")
-	if err != nil {
-		return err
-	}
-	tmp := f.Name()
-	defer func() {
-		if err != nil {
-			f.Close()
-			os.Remove(tmp)
-		}
-	}()
-	if _, err = f.Write(data); err != nil {
-		return fmt.Errorf("%s: %w", path, err)
-	}
-	if err = f.Sync(); err != nil {
-		return fmt.Errorf("%s: %w", path, err)
-	}
-	if err = f.Close(); err != nil {
-		return fmt.Errorf("%s: %w", path, err)
-	}
-	if err = os.Rename(tmp, path); err != nil {
-		return fmt.Errorf("%s: %w", path, err)
-	}
-	if d, derr := os.Open(filepath.Dir(path)); derr == nil {
-		d.Sync() // make the rename durable; not every file system supports it
-		d.Close()
-	}
-	return nil
+// writeAtomic writes through pipeline's atomic file: either the whole state
+// appears at path or nothing changes there; the mode is 0666 less the umask.
+func writeAtomic(path string, data []byte) error {
+	return pipeline.WriteFileAtomic(path, data)
 }
 
 func nan() float64 { return math.NaN() }

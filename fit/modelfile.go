@@ -10,9 +10,10 @@ import (
 	"io"
 	"io/fs"
 	"os"
-	"path/filepath"
 	"slices"
 	"strings"
+
+	"github.com/heft-project/heft/pipeline"
 )
 
 // ComputeChecksum is "sha256:" and the hex SHA-256 of json.Marshal of the
@@ -52,49 +53,14 @@ func (m *Model) Save(path string) error {
 	if err != nil {
 		return fmt.Errorf("%s: %w", path, err)
 	}
-	if err := writeAtomic(path, b); err != nil {
-		return fmt.Errorf("%s: %w", path, err)
-	}
-	return nil
+	return writeAtomic(path, b) // its errors name path
 }
 
-func writeAtomic(path string, data []byte) (err error) {
-	dir, base := filepath.Split(path)
-	if dir == "" {
-		dir = "."
-	}
-	f, err := os.CreateTemp(dir, "."+base+".tmp-*")
-	if err != nil {
-		return err
-	}
-	tmp := f.Name()
-	defer func() {
-		if err != nil {
-			f.Close()
-			os.Remove(tmp)
-		}
-	}()
-	if _, err = f.Write(data); err != nil {
-		return err
-	}
-	if err = f.Chmod(0o644); err != nil {
-		return err
-	}
-	if err = f.Sync(); err != nil {
-		return err
-	}
-	if err = f.Close(); err != nil {
-		return err
-	}
-	if err = os.Rename(tmp, path); err != nil {
-		return err
-	}
-	// Make the rename itself durable; not every system can sync a directory.
-	if d, derr := os.Open(dir); derr == nil {
-		d.Sync()
-		d.Close()
-	}
-	return nil
+// writeAtomic writes through pipeline's atomic file: the temporary name
+// lets a later run remove what a killed one left, and the mode is 0666 less
+// the umask, as os.Create gives.
+func writeAtomic(path string, data []byte) error {
+	return pipeline.WriteFileAtomic(path, data)
 }
 
 // Load reads and checks a model file. It refuses a file that is not valid

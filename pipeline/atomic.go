@@ -4,9 +4,14 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"io/fs"
+	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"strconv"
+	"strings"
 	"sync"
+	"syscall"
 )
 
 // Writes are gathered into chunks of atomicChunkSize bytes that a
@@ -41,7 +46,11 @@ type AtomicFile struct {
 }
 
 // CreateAtomic opens a temporary file beside target. The file gets target's
-// permissions if target exists and 0644 otherwise.
+// permissions if target exists, else 0666 less the umask, as os.Create
+// would give. The temporary name carries the process id
+// (".<base>.heft-tmp-<pid>-<random>"), so that temporary files a killed run
+// left beside target are recognised and removed here; files of a live
+// process, a concurrent run, are left alone.
 func CreateAtomic(target string) (*AtomicFile, error) {
 	dir, base := filepath.Split(target)
 	if dir == "" {
@@ -50,23 +59,113 @@ func CreateAtomic(target string) (*AtomicFile, error) {
 	if base == "" {
 		return nil, At(target, errors.New("output path names a directory, not a file"))
 	}
-	perm := os.FileMode(0o644)
+	var perm os.FileMode
 	if st, err := os.Stat(target); err == nil {
 		if st.IsDir() {
 			return nil, At(target, errors.New("output path is a directory"))
 		}
 		perm = st.Mode().Perm()
 	}
-	f, err := os.CreateTemp(dir, "."+base+".heft-tmp-*")
+	RemoveStaleTemps(dir, base)
+	f, err := createTemp(dir, base)
 	if err != nil {
 		return nil, At(target, fmt.Errorf("create temporary output: %w", err))
 	}
-	if err := f.Chmod(perm); err != nil {
-		f.Close()
-		os.Remove(f.Name())
-		return nil, At(target, fmt.Errorf("set output permissions: %w", err))
+	if perm != 0 {
+		if err := f.Chmod(perm); err != nil {
+			f.Close()
+			os.Remove(f.Name())
+			return nil, At(target, fmt.Errorf("set output permissions: %w", err))
+		}
 	}
 	return &AtomicFile{target: target, f: f, out: f}, nil
+}
+
+const tempMarker = ".heft-tmp-"
+
+// createTemp creates ".<base>.heft-tmp-<pid>-<random>" in dir with mode
+// 0666, which the kernel reduces by the umask (os.CreateTemp would give 0600).
+func createTemp(dir, base string) (*os.File, error) {
+	prefix := filepath.Join(dir, "."+base+tempMarker+strconv.Itoa(os.Getpid())+"-")
+	for range 100 {
+		f, err := os.OpenFile(prefix+strconv.FormatUint(uint64(rand.Uint32()), 36), os.O_RDWR|os.O_CREATE|os.O_EXCL, 0o666)
+		if errors.Is(err, fs.ErrExist) {
+			continue
+		}
+		return f, err
+	}
+	return nil, errors.New("no unused temporary name")
+}
+
+// RemoveStaleTemps removes the temporary files of targets named base in dir
+// (all targets when base is "") whose process is no longer running: what a
+// killed run leaves. It is best effort: a file that cannot be removed stays,
+// and it is never output, being hidden and never renamed into place.
+func RemoveStaleTemps(dir, base string) {
+	pattern := "." + base + "*"
+	if base != "" {
+		pattern = "." + base + tempMarker + "*"
+	}
+	names, _ := filepath.Glob(filepath.Join(dir, globEscape(pattern)))
+	for _, p := range names {
+		name := filepath.Base(p)
+		i := strings.LastIndex(name, tempMarker)
+		if i < 0 {
+			continue
+		}
+		rest := name[i+len(tempMarker):]
+		j := strings.IndexByte(rest, '-')
+		if j < 0 {
+			continue
+		}
+		pid, err := strconv.Atoi(rest[:j])
+		if err != nil || pid <= 0 || processAlive(pid) {
+			continue
+		}
+		os.Remove(p)
+	}
+}
+
+// globEscape quotes the glob metacharacters of a file name, keeping a
+// trailing "*".
+func globEscape(pattern string) string {
+	star := strings.HasSuffix(pattern, "*")
+	pattern = strings.TrimSuffix(pattern, "*")
+	var b strings.Builder
+	for _, r := range pattern {
+		if strings.ContainsRune(`*?[\`, r) {
+			b.WriteByte('\\')
+		}
+		b.WriteRune(r)
+	}
+	if star {
+		b.WriteByte('*')
+	}
+	return b.String()
+}
+
+// processAlive reports whether a process with this id exists (signal 0
+// checks without sending anything; EPERM means it exists under another user).
+func processAlive(pid int) bool {
+	if pid == os.Getpid() {
+		return true
+	}
+	err := syscall.Kill(pid, 0)
+	return err == nil || errors.Is(err, syscall.EPERM)
+}
+
+// WriteFileAtomic writes data to path through an AtomicFile: either the
+// whole file appears at path or nothing changes there.
+func WriteFileAtomic(path string, data []byte) error {
+	af, err := CreateAtomic(path)
+	if err != nil {
+		return err
+	}
+	if _, err := af.Write(data); err != nil {
+		af.Abort()
+		return err
+	}
+	return af.Commit()
 }
 
 // Name returns the target path (not the temporary one).

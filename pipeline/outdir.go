@@ -3,6 +3,7 @@ package pipeline
 import (
 	"errors"
 	"fmt"
+	"io/fs"
 	"os"
 	"path/filepath"
 	"strings"
@@ -21,7 +22,8 @@ type OutDir struct {
 	dir string
 }
 
-// NewOutDir creates dir if needed and removes a stale success marker.
+// NewOutDir creates dir if needed and removes a stale success marker and
+// the temporary files of runs that were killed.
 func NewOutDir(dir string) (*OutDir, error) {
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		return nil, At(dir, fmt.Errorf("create output directory: %w", err))
@@ -30,6 +32,14 @@ func NewOutDir(dir string) (*OutDir, error) {
 	if err := os.Remove(marker); err != nil && !errors.Is(err, os.ErrNotExist) {
 		return nil, At(marker, fmt.Errorf("remove stale success marker: %w", err))
 	}
+	// Temporary files of killed runs are never output (hidden, never renamed
+	// into place), but they hold disk space: sweep them, partition folders too.
+	filepath.WalkDir(dir, func(p string, d fs.DirEntry, err error) error {
+		if err == nil && d.IsDir() {
+			RemoveStaleTemps(p, "")
+		}
+		return nil
+	})
 	if err := syncDir(dir); err != nil {
 		return nil, err
 	}
