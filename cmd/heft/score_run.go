@@ -115,7 +115,7 @@ func (r *scoreRun) one(ctx context.Context, src pipeline.Source, in pipeline.Inp
 			NewAccumulator: func() score.Accumulator { return state.Empty() },
 		}), nil
 	}
-	_, err = pipeline.Run(ctx, src, sink, newT, fold, pipeline.EngineOptions{Workers: f.workers, Progress: r.prog.Tracker()})
+	_, err = pipeline.Run(ctx, src, outputSink{sink}, newT, fold, pipeline.EngineOptions{Workers: f.workers, Progress: r.prog.Tracker()})
 	if err != nil {
 		sink.Abort()
 		return err
@@ -149,3 +149,17 @@ type discard struct{}
 func (discard) Write(context.Context, arrow.RecordBatch) error { return nil }
 func (discard) Close() error                                   { return nil }
 func (discard) Abort() error                                   { return nil }
+
+// outputSink marks the sink's write errors (a full disk) as output errors,
+// so they get their exit code rather than the input's.
+type outputSink struct{ pipeline.Committer }
+
+func (s outputSink) Write(ctx context.Context, rec arrow.RecordBatch) error {
+	if err := s.Committer.Write(ctx, rec); err != nil {
+		if ctx.Err() != nil {
+			return err
+		}
+		return outputError{err}
+	}
+	return nil
+}
