@@ -288,16 +288,22 @@ func sameColumns(sc *arrow.Schema, rec arrow.RecordBatch) (string, error) {
 	return "", nil
 }
 
-// writeColumns encodes the columns of rec into the current row group, up to
-// s.workers at once; each column writer is used by one goroutine only.
+// writeColumns encodes the columns of rec into the current row group.
 func (s *parquetSink) writeColumns(rec arrow.RecordBatch) error {
-	ncol := int(rec.NumCols())
 	if n := int(rec.NumRows()); len(s.ones) < n {
 		s.ones = make([]int16, n)
 		for j := range s.ones {
 			s.ones[j] = 1
 		}
 	}
+	return s.eachColumn(func(w, i int) error { return s.writeColumn(w, i, rec.Column(i)) })
+}
+
+// eachColumn runs fn for every column, up to s.workers at once; each column
+// writer is used by one goroutine only, so the writers need no locking. It
+// returns the error of the first column that failed.
+func (s *parquetSink) eachColumn(fn func(worker, col int) error) error {
+	ncol := s.schema.NumFields()
 	errs := make([]error, ncol)
 	var next atomic.Int64
 	work := func(w int) {
@@ -306,7 +312,7 @@ func (s *parquetSink) writeColumns(rec arrow.RecordBatch) error {
 			if i >= ncol {
 				return
 			}
-			errs[i] = s.writeColumn(w, i, rec.Column(i))
+			errs[i] = fn(w, i)
 		}
 	}
 	if s.workers <= 1 || ncol <= 1 {
@@ -326,6 +332,31 @@ func (s *parquetSink) writeColumns(rec arrow.RecordBatch) error {
 		}
 	}
 	return nil
+}
+
+// pageFlusher is the exported method pqarrow's column writers have for
+// ending the current data page.
+type pageFlusher interface{ FlushCurrentPage() error }
+
+// flushTail encodes and compresses the last, partly filled data page of
+// column i, work that rgw.Close would otherwise do one column after the
+// other. Page boundaries are the same either way, so the bytes are too.
+func (s *parquetSink) flushTail(i int) (err error) {
+	defer func() {
+		if p := recover(); p != nil {
+			err = fmt.Errorf("internal error in Parquet encoder: %v", p)
+		}
+	}()
+	cw, err := s.rgw.Column(i)
+	if err != nil {
+		return err
+	}
+	f, ok := cw.(pageFlusher)
+	enc := cw.CurrentEncoder()
+	if !ok || enc == nil || enc.EstimatedDataEncodedSize() == 0 {
+		return nil // nothing buffered, or a page of nulls only: Close handles it
+	}
+	return f.FlushCurrentPage()
 }
 
 func (s *parquetSink) writeColumn(w, i int, arr arrow.Array) (err error) {
@@ -370,6 +401,10 @@ func (s *parquetSink) defLevels(w int, arr arrow.Array) []int16 {
 
 func (s *parquetSink) closeRowGroup() error {
 	rg := s.fw.NumRowGroups() - 1
+	if err := s.eachColumn(func(_, i int) error { return s.flushTail(i) }); err != nil {
+		s.rgw = nil
+		return err
+	}
 	err := s.rgw.Close()
 	s.rgw = nil
 	if err != nil {
