@@ -27,7 +27,7 @@ func runCopy(args []string) error {
 	fs := flag.NewFlagSet("copy", flag.ContinueOnError)
 	in := fs.String("in", "bench.parquet", "input Parquet file")
 	out := fs.String("out", "copy.parquet", "output Parquet file")
-	path := fs.String("path", "pqarrow", "pqarrow (heft's sink and engine), pqarrow-plain (pqarrow FileWriter, one goroutine), parquet-go (CopyRows), parquet-go-rg (WriteRowGroup), arrow-parquet-go (pqarrow read, parquet-go write)")
+	path := fs.String("path", "pqarrow", "read (pqarrow read, no write: the floor), pqarrow (heft's sink and engine), pqarrow-plain (pqarrow FileWriter, one goroutine), parquet-go (CopyRows), parquet-go-rg (WriteRowGroup), arrow-parquet-go (pqarrow read, parquet-go write)")
 	batch := fs.Int64("batch", 65536, "rows per batch read (pqarrow paths)")
 	readPar := fs.Bool("readpar", false, "decode the columns of a batch in parallel (pqarrow paths)")
 	readDict := fs.Bool("readdict", false, "read string columns as Arrow dictionaries (pqarrow paths)")
@@ -65,6 +65,8 @@ func runCopy(args []string) error {
 			RowGroupRows: *rg, Workers: *workers, Dictionary: *dict, DataPageSize: *page,
 			NoStatistics: *noStats, NoArrowSchema: *noSchema, CreatedBy: "heftbench",
 		}, pipeline.EngineOptions{Workers: *engineWorkers, QueueDepth: *depth, Progress: heapAt(*memprof, 1_000_000)})
+	case "read":
+		rows, err = readOnly(*in, ro)
 	case "pqarrow-plain":
 		rows, err = copyPqarrowPlain(*in, *out, ro, *rg)
 	case "arrow-parquet-go":
@@ -192,6 +194,23 @@ func copyHeft(in, out string, ro readOpts, opt pipeline.ParquetSinkOptions, eopt
 	err = sink.Close()
 	fmt.Fprintf(os.Stderr, "pqarrow: stream %.3fs, close+fsync+rename %.3fs\n", mid.Sub(start).Seconds(), time.Since(mid).Seconds())
 	return rows, err
+}
+
+func readOnly(in string, ro readOpts) (int64, error) {
+	pr, rr, err := openArrow(in, ro)
+	if err != nil {
+		return 0, err
+	}
+	defer pr.Close()
+	defer rr.Release()
+	var rows int64
+	for rr.Next() {
+		rows += rr.RecordBatch().NumRows()
+	}
+	if err := rr.Err(); err != nil && !errors.Is(err, io.EOF) {
+		return rows, err
+	}
+	return rows, nil
 }
 
 func copyPqarrowPlain(in, out string, ro readOpts, rg int64) (int64, error) {
