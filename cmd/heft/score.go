@@ -7,6 +7,7 @@ import (
 	"os"
 	"path/filepath"
 	"runtime"
+	"runtime/debug"
 	"strings"
 	"time"
 
@@ -97,8 +98,16 @@ const (
 	outStdout                   // Arrow IPC stream on stdout
 )
 
+// memoryLimit is the Go heap's soft limit during scoring unless GOMEMLIMIT
+// says otherwise: memory is bounded by batch size × queue depth by design,
+// and the limit keeps the collector from letting garbage grow past that.
+const memoryLimit = 384 << 20
+
 func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error {
 	start := time.Now()
+	if os.Getenv("GOMEMLIMIT") == "" {
+		defer debug.SetMemoryLimit(debug.SetMemoryLimit(memoryLimit))
+	}
 	if err := requireFlag("model", f.model); err != nil {
 		return err
 	}
@@ -206,6 +215,10 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 		}
 	}
 	acfg := aggregate.Config{Model: m, Policy: f.policy, By: splitList(f.by), MinSegmentRows: f.minSegmentRows, MaxSegments: f.maxSegments, Gate: f.gate}
+	// The accumulators run when something asks for their results; a plain
+	// scoring run only writes the table.
+	accumulate := f.state != "" || f.report != "" || f.reportOnly || f.by != "" ||
+		f.gate.MaxSMD > 0 || f.gate.MinESSShare > 0 || f.gate.MaxPSI > 0
 	var state *aggregate.State
 	prog := newProgress(env, total)
 	run := &scoreRun{env: env, f: f, m: m, scorer: scorer, mem: mem, format: format, prog: prog}
@@ -219,7 +232,7 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 		return state.Merge(p.(*aggregate.State))
 	}
 	newState := func(schema *arrow.Schema) error {
-		if state != nil {
+		if state != nil || !accumulate {
 			return nil
 		}
 		s, err := aggregate.New(acfg, schema)
@@ -282,6 +295,10 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 		}
 	}
 	prog.Finish()
+	if state == nil {
+		env.Logf("heft score: no --report, --state or gate asked for: no estimates or diagnostics computed")
+		return nil
+	}
 	state.Inputs = inputPaths(ins)
 	state.RunSeconds = time.Since(start).Seconds()
 	return finishReport(env, state, f.state, f.report)

@@ -109,10 +109,14 @@ func (r *scoreRun) one(ctx context.Context, src pipeline.Source, in pipeline.Inp
 	if err != nil {
 		return outputError{err}
 	}
+	var newAcc func() score.Accumulator
+	if state != nil {
+		newAcc = func() score.Accumulator { return state.Empty() }
+	}
 	newT := func() (pipeline.Transform, error) {
 		return score.NewStage(enc, r.scorer, score.StageOptions{
 			Alloc: r.mem, Columns: f.cols, OutputSchema: outSchema, Keep: keep, WriteTable: target != "",
-			NewAccumulator: func() score.Accumulator { return state.Empty() },
+			NewAccumulator: newAcc,
 		}), nil
 	}
 	_, err = pipeline.Run(ctx, src, outputSink{sink}, newT, fold, pipeline.EngineOptions{Workers: f.workers, Progress: r.prog.Tracker()})
