@@ -216,8 +216,11 @@ func TestParquetSinkDictionaryChoice(t *testing.T) {
 		}
 		return n
 	}
-	if n := dictCols(writeTest(t, ParquetSinkOptions{}, 100)); n != 2 {
-		t.Errorf("default: %d dictionary columns, want the 2 string ones", n)
+	if n := dictCols(writeTest(t, ParquetSinkOptions{}, 100)); n != 3 {
+		t.Errorf("default: %d dictionary columns, want the 2 string ones and k, which repeats", n)
+	}
+	if n := dictCols(writeTest(t, ParquetSinkOptions{Dictionary: "strings"}, 100)); n != 2 {
+		t.Errorf("strings: %d dictionary columns, want 2", n)
 	}
 	if n := dictCols(writeTest(t, ParquetSinkOptions{Dictionary: "none"}, 100)); n != 0 {
 		t.Errorf("none: %d dictionary columns", n)
@@ -333,4 +336,83 @@ func TestParquetSinkNullInRequired(t *testing.T) {
 		t.Errorf("error %v, want one naming column id", err)
 	}
 	s.Abort()
+}
+
+func TestRepeats(t *testing.T) {
+	mem := memory.DefaultAllocator
+	ints := func(f func(i int) int64, n int) arrow.Array {
+		b := array.NewInt64Builder(mem)
+		defer b.Release()
+		for i := range n {
+			b.Append(f(i))
+		}
+		return b.NewArray()
+	}
+	for _, tc := range []struct {
+		name string
+		arr  arrow.Array
+		want bool
+	}{
+		{"codes", ints(func(i int) int64 { return int64(i % 50) }, 20000), true},
+		{"ids", ints(func(i int) int64 { return int64(i) }, 20000), false},
+		{"half", ints(func(i int) int64 { return int64(i / 2) }, 1000), true},
+		{"strings are not numeric", array.MakeArrayOfNull(mem, arrow.BinaryTypes.String, 10), false},
+		{"all null", array.MakeArrayOfNull(mem, arrow.PrimitiveTypes.Int64, 10), false},
+	} {
+		if got := repeats(tc.arr); got != tc.want {
+			t.Errorf("%s: repeats = %v, want %v", tc.name, got, tc.want)
+		}
+		tc.arr.Release()
+	}
+}
+
+// TestParquetSinkPageEndsWithRowGroup covers a dictionary column whose last
+// page fills up exactly at the end of a row group, so nothing is left for
+// the tail flush.
+func TestParquetSinkPageEndsWithRowGroup(t *testing.T) {
+	sc := arrow.NewSchema([]arrow.Field{{Name: "code", Type: arrow.PrimitiveTypes.Int64, Nullable: true}}, nil)
+	mem := memory.NewCheckedAllocator(memory.NewGoAllocator())
+	var buf bytes.Buffer
+	// Dictionary pages are cut by raw input size: 1024 int64 values = 8 KiB.
+	s, err := NewParquetWriter(&buf, sc, ParquetSinkOptions{Alloc: mem, RowGroupRows: 1024, DataPageSize: 8192})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for k := range 3 {
+		b := array.NewInt64Builder(mem)
+		for i := range 1024 {
+			b.Append(int64((k*1024 + i) % 7))
+		}
+		col := b.NewArray()
+		rec := array.NewRecordBatch(sc, []arrow.Array{col}, 1024)
+		if err := s.Write(context.Background(), rec); err != nil {
+			t.Fatal(err)
+		}
+		rec.Release()
+		col.Release()
+		b.Release()
+	}
+	if err := s.Close(); err != nil {
+		t.Fatal(err)
+	}
+	mem.AssertSize(t, 0)
+	f := openPQ(t, buf.Bytes())
+	if f.NumRows() != 3072 || len(f.RowGroups()) != 3 {
+		t.Fatalf("%d rows in %d row groups", f.NumRows(), len(f.RowGroups()))
+	}
+	if f.Metadata().RowGroups[0].Columns[0].MetaData.DictionaryPageOffset == 0 {
+		t.Error("column not dictionary encoded; the test misses its case")
+	}
+	r := pq.NewReader(bytes.NewReader(buf.Bytes()))
+	defer r.Close()
+	rows := make([]pq.Row, 3072)
+	n, _ := r.ReadRows(rows)
+	for i, row := range rows[:n] {
+		if row[0].Int64() != int64(i%7) {
+			t.Fatalf("row %d: %v", i, row[0])
+		}
+	}
+	if n != 3072 {
+		t.Errorf("read %d rows", n)
+	}
 }

@@ -34,7 +34,7 @@ func runCopy(args []string) error {
 	workers := fs.Int("workers", 0, "pqarrow: columns encoded at once (0 = GOMAXPROCS)")
 	engineWorkers := fs.Int("engine-workers", 1, "pqarrow: engine workers (identity transform)")
 	depth := fs.Int("depth", 0, "pqarrow: engine queue depth (0 = 2*workers)")
-	dict := fs.String("dict", "", "pqarrow: dictionary columns: strings, all or none")
+	dict := fs.String("dict", "", "pqarrow: dictionary columns: auto (default), strings, all or none")
 	page := fs.Int64("pagesize", 0, "pqarrow: data page size in bytes (0 = 1 MiB)")
 	rg := fs.Int64("rowgroup", 0, "rows per row group (0 = 131072)")
 	noStats := fs.Bool("nostats", false, "pqarrow: no column statistics")
