@@ -79,17 +79,17 @@ const (
 // Flatbuffer vtable slots of the Arrow IPC tables we walk (Schema.fbs,
 // Message.fbs, File.fbs): slot k is at vtable offset 4+2k.
 const (
-	fbMessageHeader       = 8  // Message.header
-	fbFooterSchema        = 6  // Footer.schema
-	fbSchemaFields        = 6  // Schema.fields
-	fbSchemaMetadata      = 8  // Schema.custom_metadata
-	fbSchemaFeatures      = 10 // Schema.features (int64 each)
-	fbFieldTypeType       = 8  // Field.type_type
-	fbFieldType           = 10 // Field.type
-	fbFieldChildren       = 14 // Field.children
-	fbFieldMetadata       = 16 // Field.custom_metadata
-	fbUnionTypeIDs        = 6  // Union.typeIds (int32 each)
-	fbTypeUnion     uint8 = 14 // Type.Union
+	fbMessageHeader        = 8  // Message.header
+	fbFooterSchema         = 6  // Footer.schema
+	fbSchemaFields         = 6  // Schema.fields
+	fbSchemaMetadata       = 8  // Schema.custom_metadata
+	fbSchemaFeatures       = 10 // Schema.features (int64 each)
+	fbFieldTypeType        = 8  // Field.type_type
+	fbFieldType            = 10 // Field.type
+	fbFieldChildren        = 14 // Field.children
+	fbFieldMetadata        = 16 // Field.custom_metadata
+	fbUnionTypeIDs         = 6  // Union.typeIds (int32 each)
+	fbTypeUnion      uint8 = 14 // Type.Union
 )
 
 type fbChecker struct {
