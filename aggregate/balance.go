@@ -101,10 +101,16 @@ func bin9(e *deciles, x float64) int {
 }
 
 // add folds one batch in. x[j] is term j+1 per row; rows and w as for
-// armMoments; hist is scratch with room for the largest histogram.
-func (b *balance) add(x [][]float64, rows *arms, w []float64, hist []float64) {
+// armMoments; hist is scratch with room for the largest histogram. bt says
+// which terms are 0/1 in this batch (nil: none), arm is the rows' treatment
+// codes and sw the arms' Σw, which the 0/1 path needs.
+func (b *balance) add(x [][]float64, rows *arms, w []float64, hist []float64, bt *binaryTerms, arm []int8, sw [2]float64) {
 	var u, wt [2]Moments
 	for j, col := range x {
+		if bt != nil && bt.is[j] {
+			b.addBinary(j, bt.ones[j], rows, arm, w, sw)
+			continue
+		}
 		armMoments(col, rows, w, &u, &wt)
 		for a := 0; a < 2; a++ {
 			b.U[a][j].Merge(u[a])
@@ -131,6 +137,35 @@ func (b *balance) add(x [][]float64, rows *arms, w []float64, hist []float64) {
 				b.H[a][j][k].Add(v)
 			}
 		}
+	}
+}
+
+// addBinary folds in term j, 0/1 in this batch with 1 on the rows ones:
+// its moments from the count and weight of the ones per arm, and its
+// histogram from two bins, those of 0 and of 1, holding Σw of the zeros
+// (the arm's Σw less the ones') and of the ones.
+func (b *balance) addBinary(j int, ones []int32, rows *arms, arm []int8, w []float64, sw [2]float64) {
+	var c, s [3]float64 // by arm code + 1; code −1 (null) is dropped
+	for _, i := range ones {
+		a := arm[i] + 1
+		c[a]++
+		s[a] += w[i]
+	}
+	for a := 0; a < 2; a++ {
+		u, wt := binaryMoments(float64(len(rows[a])), c[a+1], sw[a], s[a+1])
+		b.U[a][j].Merge(u)
+		b.W[a][j].Merge(wt)
+		if b.edges == nil {
+			continue
+		}
+		e := b.edges[j]
+		k0, k1 := bin(e, 0), bin(e, 1)
+		if k0 == k1 {
+			b.H[a][j][k0].Add(sw[a])
+			continue
+		}
+		b.H[a][j][k0].Add(max(sw[a]-s[a+1], 0))
+		b.H[a][j][k1].Add(s[a+1])
 	}
 }
 

@@ -12,9 +12,19 @@ import (
 	"github.com/heft-project/heft/score"
 )
 
-// benchInput is an invented 65536-row batch of 20 terms (demo data).
-func benchInput(b *testing.B, outcome, segments bool) (*State, arrow.RecordBatch, *fit.Batch, *score.Scores) {
-	const n, p = 65536, 20
+// benchInput is an invented 65536-row batch (demo data): with levels nil,
+// 20 numeric terms; otherwise 4 numeric terms and per categorical column
+// the given number of levels besides the reference, one-hot encoded, as the
+// demo table's model has (4, 7 and 1 levels: 16 terms).
+func benchInput(b *testing.B, outcome, segments bool, levels []int) (*State, arrow.RecordBatch, *fit.Batch, *score.Scores) {
+	const n = 65536
+	p := 20
+	if levels != nil {
+		p = 4
+		for _, l := range levels {
+			p += l
+		}
+	}
 	rng := rand.New(rand.NewPCG(3, 4))
 	terms := []string{"intercept"}
 	ref := fit.Reference{PropensityEdges: make([]float64, 51), PropensityDeciles: []float64{.1, .2, .3, .4, .5, .6, .7, .8, .9},
@@ -29,9 +39,21 @@ func benchInput(b *testing.B, outcome, segments bool) (*State, arrow.RecordBatch
 		terms = append(terms, name)
 		ref.Terms = append(ref.Terms, fit.TermReference{Term: name, Edges: []float64{-1.28, -.84, -.52, -.25, 0, .25, .52, .84, 1.28}, SD: 1})
 		bt.X[j] = make([]float64, n)
-		for i := range bt.X[j] {
-			bt.X[j][i] = rng.NormFloat64()
+		if levels == nil || j < 4 {
+			for i := range bt.X[j] {
+				bt.X[j][i] = rng.NormFloat64()
+			}
 		}
+	}
+	base := 4
+	for _, l := range levels {
+		for i := 0; i < n; i++ {
+			// the reference level is as frequent as the others together
+			if k := rng.IntN(2 * l); k < l {
+				bt.X[base+k][i] = 1
+			}
+		}
+		base += l
 	}
 	for i := 0; i < n; i++ {
 		e := 0.05 + 0.9*rng.Float64()
@@ -86,14 +108,18 @@ func recSchema(rec arrow.RecordBatch) *arrow.Schema {
 // BenchmarkStateAdd measures Add on one 65536-row, 20-term batch, the way
 // the engine calls it: a fresh State per batch, merged into the run's.
 // "balance" has no outcome (balance, overlap, drift only); "outcome" adds
-// the effect estimates; "segments" adds 16 segments of one string column.
+// the effect estimates; "segments" adds 16 segments of one string column;
+// "demo" is "outcome" with the demo model's shape, 4 numeric terms and 12
+// one-hot terms of 3 categorical columns.
 func BenchmarkStateAdd(b *testing.B) {
 	for _, c := range []struct {
 		name              string
 		outcome, segments bool
-	}{{"balance", false, false}, {"outcome", true, false}, {"segments", true, true}} {
+		levels            []int
+	}{{"balance", false, false, nil}, {"outcome", true, false, nil}, {"segments", true, true, nil},
+		{"demo", true, false, []int{4, 7, 1}}} {
 		b.Run(c.name, func(b *testing.B) {
-			run, rec, bt, sc := benchInput(b, c.outcome, c.segments)
+			run, rec, bt, sc := benchInput(b, c.outcome, c.segments, c.levels)
 			b.ReportAllocs()
 			b.ResetTimer()
 			for i := 0; i < b.N; i++ {

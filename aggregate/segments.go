@@ -37,20 +37,23 @@ type cell struct {
 
 // add folds in a batch; rows and w are derived from b and s by the State,
 // hist and eff are scratch.
-func (c *cell) add(b *fit.Batch, s *score.Scores, rows *arms, w []float64, hist []float64, eff *EffectsScratch) {
+// arm is the rows' treatment codes and bt the batch's 0/1 terms.
+func (c *cell) add(b *fit.Batch, s *score.Scores, rows *arms, arm []int8, w []float64, hist []float64, bt *binaryTerms, eff *EffectsScratch) {
 	c.Rows += int64(b.N)
 	c.NullTreatment += int64(b.N - len(rows[0]) - len(rows[1]))
+	var sws [2]float64
 	for a, idx := range rows {
 		var sw, sw2 float64
 		for _, i := range idx {
 			sw += w[i]
 			sw2 += w[i] * w[i]
 		}
+		sws[a] = sw
 		c.N[a] += int64(len(idx))
 		c.SumW[a].Add(sw)
 		c.SumW2[a].Add(sw2)
 	}
-	c.Balance.add(b.X, rows, w, hist)
+	c.Balance.add(b.X, rows, w, hist, bt, arm, sws)
 	c.Effects.AddWith(b, s, eff)
 }
 

@@ -76,6 +76,7 @@ type scratch struct {
 	local  []*segment
 	count  []int32
 	g      gathered
+	bin    binaryTerms
 	eff    EffectsScratch // shared by the run's and the segments' Effects
 }
 
@@ -309,7 +310,8 @@ func (s *State) Add(rec arrow.RecordBatch, b *fit.Batch, sc *score.Scores) error
 	}
 
 	x.rows.split(arm)
-	a.Whole.add(b, sc, &x.rows, w, x.hist, &x.eff)
+	x.bin.find(b.X, n)
+	a.Whole.add(b, sc, &x.rows, arm, w, x.hist, &x.bin, &x.eff)
 	a.Overlap.add(sc.E, &x.rows, w, x.hist)
 	a.Drift.add(sc.E, &x.rows)
 	a.Clipped += sc.Clipped
@@ -416,7 +418,8 @@ func (s *State) addSegments(cols []arrow.Array, b *fit.Batch, sc *score.Scores, 
 	for l, g := range x.local {
 		gather(idx[off[l]:off[l+1]], b, sc, x.arm, x.w, &x.g)
 		x.g.rows.split(x.g.arm)
-		g.add(&x.g.b, &x.g.s, &x.g.rows, x.g.w, x.hist, &x.eff)
+		x.bin.find(x.g.b.X, x.g.b.N)
+		g.add(&x.g.b, &x.g.s, &x.g.rows, x.g.arm, x.g.w, x.hist, &x.bin, &x.eff)
 	}
 	return nil
 }

@@ -1,0 +1,114 @@
+package aggregate
+
+import (
+	"math"
+	"testing"
+
+	"github.com/heft-project/heft/score"
+)
+
+func TestBinaryTermsFind(t *testing.T) {
+	n := 300
+	x := [][]float64{make([]float64, n), make([]float64, n), make([]float64, n), make([]float64, n)}
+	var want []int32
+	for i := 0; i < n; i++ {
+		if i%7 == 3 {
+			x[0][i] = 1
+			want = append(want, int32(i))
+		}
+		x[1][i] = float64(i % 2)
+		x[2][i] = float64(i%3) * 0.5 // 0, 0.5, 1: not 0/1
+		x[3][i] = 1
+	}
+	x[1][n-1] = math.NaN() // a NaN in the last chunk
+	var bt binaryTerms
+	bt.find(x, n)
+	if !bt.is[0] || bt.is[1] || bt.is[2] || !bt.is[3] {
+		t.Fatalf("is = %v, want [true false false true]", bt.is)
+	}
+	if len(bt.ones[0]) != len(want) || len(bt.ones[3]) != n {
+		t.Fatalf("%d and %d ones, want %d and %d", len(bt.ones[0]), len(bt.ones[3]), len(want), n)
+	}
+	for k, i := range want {
+		if bt.ones[0][k] != i {
+			t.Fatalf("one %d at row %d, want %d", k, bt.ones[0][k], i)
+		}
+	}
+	bt.find(x, 0)
+	for j, is := range bt.is {
+		if is {
+			t.Errorf("term %d is 0/1 in an empty batch", j)
+		}
+	}
+}
+
+// TestBinaryBalance: the 0/1 path gives the figures of the general path, to
+// 1e-12, on the fixture's 0/1 terms x3, cat=b and cat=c and on x1 made an
+// indicator, with null treatments and zero weights among the rows.
+func TestBinaryBalance(t *testing.T) {
+	fx := loadFixture(t)
+	x := make([][]float64, len(fx.x))
+	copy(x, fx.x)
+	// x1 replaced by an indicator, so a 0/1 term whose edges do not split 0
+	// from 1 is covered too
+	ind := make([]float64, fx.n)
+	for i, v := range fx.x[0] {
+		if v > 0.3 {
+			ind[i] = 1
+		}
+	}
+	x[0] = ind
+	for _, est := range score.Estimands {
+		m := fx.model()
+		edges := make([][]float64, len(x))
+		for j := range edges {
+			edges[j] = m.Reference.Terms[j].Edges
+		}
+		edges[0] = []float64{0.5, 1.5} // 0 and 1 in different bins
+		fast, dense := newBalance(len(x), edges), newBalance(len(x), edges)
+		var bt binaryTerms
+		nBinary := 0
+		for _, cut := range [][2]int{{0, 17}, {17, 200}, {200, fx.n}} {
+			lo, hi := cut[0], cut[1]
+			xs := make([][]float64, len(x))
+			for j := range x {
+				xs[j] = x[j][lo:hi]
+			}
+			arm := fx.t[lo:hi]
+			w := make([]float64, hi-lo)
+			var rows arms
+			rows.split(arm)
+			var sw [2]float64
+			for i := range w {
+				if arm[i] >= 0 && i%11 != 5 { // some usable rows have weight 0
+					w[i] = score.Weight(est, arm[i], fx.e[lo+i])
+				}
+			}
+			for a, idx := range rows {
+				for _, i := range idx {
+					sw[a] += w[i]
+				}
+			}
+			hist := make([]float64, 16)
+			bt.find(xs, hi-lo)
+			for _, is := range bt.is {
+				nBinary += b2i(is)
+			}
+			fast.add(xs, &rows, w, hist, &bt, arm, sw)
+			dense.add(xs, &rows, w, hist, nil, arm, sw)
+		}
+		if nBinary != 4*3 {
+			t.Fatalf("%d 0/1 term batches, want 12", nBinary)
+		}
+		for j := range x {
+			f, d := fast.term(j, est), dense.term(j, est)
+			fv := []float64{f.MeanT, f.MeanC, f.MeanTW, f.MeanCW, f.VarT, f.VarC, f.VarTW, f.VarCW, f.SMD, f.SMDW, f.VarRatioW, f.KSW}
+			dv := []float64{d.MeanT, d.MeanC, d.MeanTW, d.MeanCW, d.VarT, d.VarC, d.VarTW, d.VarCW, d.SMD, d.SMDW, d.VarRatioW, d.KSW}
+			for k := range fv {
+				if diff := relDiff(fv[k], dv[k]); diff > 1e-12 || math.IsNaN(fv[k]) != math.IsNaN(dv[k]) {
+					t.Errorf("%s term %d figure %d: 0/1 path %v, general %v", est, j, k, fv[k], dv[k])
+				}
+			}
+		}
+	}
+}
