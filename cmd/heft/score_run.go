@@ -81,7 +81,10 @@ func (r *scoreRun) one(ctx context.Context, src pipeline.Source, in pipeline.Inp
 	}
 	// Partition columns exist only in the folder names; the written file keeps
 	// the file's own columns.
-	keep := schema.NumFields() - partitionColumnsAdded(schema, in)
+	keep := schema.NumFields()
+	if ps, ok := src.(pipeline.PartitionedSource); ok {
+		keep -= len(ps.PartitionColumns())
+	}
 	fileSchema := arrow.NewSchema(schema.Fields()[:keep], nil)
 	var inMeta arrow.Metadata
 	if ms, ok := src.(pipeline.MetadataSource); ok {
@@ -132,19 +135,6 @@ func (r *scoreRun) one(ctx context.Context, src pipeline.Source, in pipeline.Inp
 		r.env.Logf("heft score: wrote %s", target)
 	}
 	return nil
-}
-
-// partitionColumnsAdded counts the trailing columns that the source added
-// from hive-style folder names.
-func partitionColumnsAdded(schema *arrow.Schema, in pipeline.Input) int {
-	n := 0
-	fields := schema.Fields()
-	for i := len(in.Partitions) - 1; i >= 0 && n < len(fields); i-- {
-		if fields[len(fields)-1-n].Name == in.Partitions[i].Key {
-			n++
-		}
-	}
-	return n
 }
 
 // discard is the sink of a --report-only run.
