@@ -161,6 +161,15 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 	if mode == outFile && len(ins) > 1 {
 		return usagef(fmt.Errorf("%d inputs need a directory output (end -o with /) or -o - for a stream", len(ins)))
 	}
+	if mode == outDir {
+		seen := map[string]string{}
+		for _, in := range ins {
+			if prev, ok := seen[in.Rel]; ok {
+				return usagef(fmt.Errorf("%s and %s would both be written to %s in %s; pass their common parent directory instead", prev, in.Path, in.Rel, f.out))
+			}
+			seen[in.Rel] = in.Path
+		}
+	}
 	if mode == outFile || mode == outDir {
 		if err := refuseOverwrite(f.out, ins); err != nil {
 			return err
