@@ -50,7 +50,7 @@ func newArrowSource(path string, in ipcBatches, full *arrow.Schema, p *projectio
 	meta := full.Metadata()
 	return &arrowSource{
 		path: path, in: in, batch: opt.batchRows(), idx: idx,
-		schema: projectSchema(full, idx, meta), meta: meta, row: 0,
+		schema: projectSchema(full, idx, meta), meta: meta, row: 0, loc: Location{File: path, RowGroup: -1},
 	}, nil
 }
 

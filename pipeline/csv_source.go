@@ -65,7 +65,7 @@ func openCSV(path string, p *projection, opt SourceOptions) (Source, error) {
 			return nil, At(path, fmt.Errorf("line 1: column %d has an empty name", i+1))
 		}
 	}
-	s := &csvSource{path: path, mem: opt.alloc(), batch: opt.batchRows()}
+	s := &csvSource{path: path, mem: opt.alloc(), batch: opt.batchRows(), loc: Location{File: path, RowGroup: -1}}
 	for {
 		rec, err := r.Read()
 		if errors.Is(err, io.EOF) {

@@ -54,7 +54,7 @@ type parquetSource struct {
 }
 
 func openParquet(path string, p *projection, opt SourceOptions) (Source, error) {
-	s := &parquetSource{path: path, mem: opt.alloc(), batch: opt.batchRows(), rg: -1}
+	s := &parquetSource{path: path, mem: opt.alloc(), batch: opt.batchRows(), rg: -1, loc: Location{File: path, RowGroup: -1}}
 	err := guard(path, func() error {
 		props := parquet.NewReaderProperties(s.mem)
 		props.BufferedStreamEnabled = true

@@ -8,6 +8,8 @@ import (
 
 // Location says where a batch came from: the file, the row group (-1 for
 // formats without them) and the file-relative index of the batch's first row.
+// Before the first Next it names the file, so that errors about the schema
+// can too.
 type Location struct {
 	File     string
 	RowGroup int
