@@ -226,8 +226,16 @@ func repeats(arr arrow.Array) bool {
 		key = func(i int) uint64 { return uint64(a.Value(i)) }
 	case *array.Int32:
 		key = func(i int) uint64 { return uint64(a.Value(i)) }
+	case *array.Int16:
+		key = func(i int) uint64 { return uint64(a.Value(i)) }
+	case *array.Int8:
+		key = func(i int) uint64 { return uint64(a.Value(i)) }
 	case *array.Uint64:
 		key = func(i int) uint64 { return a.Value(i) }
+	case *array.Uint16:
+		key = func(i int) uint64 { return uint64(a.Value(i)) }
+	case *array.Uint8:
+		key = func(i int) uint64 { return uint64(a.Value(i)) }
 	case *array.Uint32:
 		key = func(i int) uint64 { return uint64(a.Value(i)) }
 	case *array.Float64:

@@ -356,6 +356,7 @@ func TestRepeats(t *testing.T) {
 		{"codes", ints(func(i int) int64 { return int64(i % 50) }, 20000), true},
 		{"ids", ints(func(i int) int64 { return int64(i) }, 20000), false},
 		{"half", ints(func(i int) int64 { return int64(i / 2) }, 1000), true},
+		{"int8 flags", int8s(mem, 0, 1, 1, 0, 1, 0), true},
 		{"strings are not numeric", array.MakeArrayOfNull(mem, arrow.BinaryTypes.String, 10), false},
 		{"all null", array.MakeArrayOfNull(mem, arrow.PrimitiveTypes.Int64, 10), false},
 	} {
@@ -415,4 +416,11 @@ func TestParquetSinkPageEndsWithRowGroup(t *testing.T) {
 	if n != 3072 {
 		t.Errorf("read %d rows", n)
 	}
+}
+
+func int8s(mem memory.Allocator, v ...int8) arrow.Array {
+	b := array.NewInt8Builder(mem)
+	defer b.Release()
+	b.AppendValues(v, nil)
+	return b.NewArray()
 }
