@@ -1,6 +1,7 @@
 package aggregate
 
 import (
+	"fmt"
 	"math"
 	"testing"
 
@@ -109,6 +110,81 @@ func TestBinaryBalance(t *testing.T) {
 					t.Errorf("%s term %d figure %d: 0/1 path %v, general %v", est, j, k, fv[k], dv[k])
 				}
 			}
+		}
+	}
+}
+
+// TestBinaryEffects: the per-arm gradient series and the sums over the ones
+// of 0/1 terms give the sums of the dense computation (addDense, every slot
+// times every term) to 1e-12, on every effects scenario, with and without
+// outcome models, and with a numeric term made 0/1.
+func TestBinaryEffects(t *testing.T) {
+	for _, name := range effectsScenarios {
+		for _, aug := range []bool{true, false} {
+			for _, indicator := range []bool{false, true} {
+				fx := loadEffectsFixture(t, name)
+				cfg := fx.cfg
+				cfg.HasOutcome = aug
+				if indicator {
+					x := make([]float64, fx.b.N)
+					for i, v := range fx.b.X[0] {
+						x[i] = float64(b2i(v > 0.2))
+					}
+					fx.b.X[0] = x
+				}
+				fast, dense := NewEffects(cfg), NewEffects(cfg)
+				nBinary := 0
+				var sc EffectsScratch
+				for _, k := range []int{300, 129, 1000} {
+					for lo := 0; lo < fx.b.N; lo += k * 3 {
+						b, s := fx.rowsOf(span(lo, min(lo+k, fx.b.N)))
+						if !aug {
+							s.Mu0, s.Mu1 = nil, nil
+						}
+						fast.AddWith(b, s, &sc)
+						dense.addDense(b, s)
+						for _, is := range sc.bin.is {
+							nBinary += b2i(is)
+						}
+					}
+				}
+				if indicator && nBinary == 0 {
+					t.Fatalf("%s: no 0/1 term", name)
+				}
+				where := fmt.Sprintf("%s outcome=%v indicator=%v", name, aug, indicator)
+				if fast.Rows != dense.Rows || fast.Degenerate != dense.Degenerate || fast.Trimmed != dense.Trimmed || fast.NoGradient || dense.NoGradient {
+					t.Fatalf("%s: counts %+v, want %+v", where, *fast, *dense)
+				}
+				closeSums(t, where+" sum", fast.Sum, dense.Sum, 1)
+				closeSums(t, where+" cross", fast.Cross, dense.Cross, 1)
+				closeSums(t, where+" grad", fast.Grad, dense.Grad, nSlots)
+				if t.Failed() {
+					return
+				}
+			}
+		}
+	}
+}
+
+// closeSums compares compensated sums to 1e-12 relative to the largest of
+// each stride-spaced series (a gradient slot's across the terms), since a
+// single sum may cancel to nearly 0.
+func closeSums(t *testing.T, what string, got, want []Sum, stride int) {
+	t.Helper()
+	if len(got) != len(want) {
+		t.Fatalf("%s: %d sums, want %d", what, len(got), len(want))
+	}
+	for c := range got {
+		scale := 0.0
+		for k := c % stride; k < len(want); k += stride {
+			scale = math.Max(scale, math.Abs(want[k].Value()))
+		}
+		if stride == 1 {
+			scale = math.Abs(want[c].Value())
+		}
+		g, w := got[c].Value(), want[c].Value()
+		if d := math.Abs(g - w); d > 1e-12*scale || math.IsNaN(g) != math.IsNaN(w) {
+			t.Errorf("%s[%d] = %v, want %v (scale %g)", what, c, g, w, scale)
 		}
 	}
 }

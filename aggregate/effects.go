@@ -139,16 +139,34 @@ const blockRows = 128
 // full size. It holds no results, so one scratch per goroutine can serve any
 // number of Effects (e.g. one per segment) through AddWith.
 type EffectsScratch struct {
-	rows int       // rows per block, at most blockRows
-	v    []float64 // nComp × rows, component-major
-	q    []float64 // nSlots × rows, slot-major
+	rows int          // rows per block, at most blockRows
+	v    []float64    // nComp × rows, component-major
+	p    [2][]float64 // per arm, nSeries × rows, series-major (see gradSeries)
+	at   [2][]int32   // per arm, the batch rows of the block's series
+	pos  []int32      // per block row: its index among its arm's, −1 if unused
+	xg   []float64    // a term's values gathered for one arm's rows
+	ser  [2][]float64 // per arm, per term, the block's series sums
+	cur  []int        // per 0/1 term, the next of its ones to visit
+	bin  binaryTerms  // AddWith's own, when the caller has none
 }
 
 // NewEffectsScratch allocates a full-size scratch.
 func NewEffectsScratch() *EffectsScratch { return newScratch(blockRows) }
 
 func newScratch(rows int) *EffectsScratch {
-	return &EffectsScratch{rows: rows, v: make([]float64, nComp*rows), q: make([]float64, nSlots*rows)}
+	sc := &EffectsScratch{rows: rows, v: make([]float64, nComp*rows), pos: make([]int32, rows), xg: make([]float64, rows)}
+	for a := range sc.p {
+		sc.p[a] = make([]float64, nSeries*rows)
+		sc.at[a] = make([]int32, rows)
+	}
+	return sc
+}
+
+// ok reports whether sc has the shape newScratch gives.
+func (sc *EffectsScratch) ok() bool {
+	r := sc.rows
+	return r > 0 && len(sc.v) == nComp*r && len(sc.p[0]) == nSeries*r && len(sc.p[1]) == nSeries*r &&
+		len(sc.at[0]) == r && len(sc.at[1]) == r && len(sc.pos) == r && len(sc.xg) == r
 }
 
 // Components: each estimator's per-row values v, at a fixed offset.
@@ -273,10 +291,16 @@ func (a *Effects) Add(b *fit.Batch, s *score.Scores) {
 // AddWith is Add with the caller's scratch (a zero EffectsScratch is fine),
 // which must not be in use by another goroutine.
 func (a *Effects) AddWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch) {
+	a.addWith(b, s, sc, nil)
+}
+
+// addWith is AddWith with the batch's 0/1 terms already found (bt nil: find
+// them here).
+func (a *Effects) addWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch, bt *binaryTerms) {
 	if a == nil || b == nil || s == nil || b.Y == nil || sc == nil || a.Check() != nil {
 		return
 	}
-	if sc.rows <= 0 || len(sc.v) != nComp*sc.rows || len(sc.q) != nSlots*sc.rows {
+	if !sc.ok() {
 		*sc = *NewEffectsScratch() // the zero value is ready to use
 	}
 	n := min(b.N, len(b.T), len(b.Y), len(s.E), len(s.W), len(s.InSupport))
@@ -307,26 +331,30 @@ func (a *Effects) AddWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch) {
 	run := pol.Estimand
 	logit := a.logisticOutcome()
 
-	last, ns := nComp, nSlots
+	last, ns, nser := nComp, nSlots, nSeries
 	if !aug {
-		last, ns = cAugATE, nAugFree
+		last, ns, nser = cAugATE, nAugFree, nSeriesAugFree
 	}
-	if !grad {
-		ns = 0
+	var g gradFold
+	if grad {
+		if bt == nil || len(bt.is) != len(b.X) {
+			bt = &sc.bin
+			bt.find(b.X, n)
+		}
+		g.init(sc, bt, run, p, ns, nser)
 	}
-	V, Q, B := sc.v, sc.q, sc.rows
-	var v, dE, dM1, dM0 [nComp]float64
+	runATE, runATT, runATC, runOv := run == score.ATE, run == score.ATT, run == score.ATC, run == score.Overlap
+	V, B := sc.v, sc.rows
 	for lo := 0; lo < n; lo += B {
 		hi := min(lo+B, n)
+		var na [2]int
 		for i := lo; i < hi; i++ {
 			r := i - lo
 			if !a.usable(b, s, i, aug) {
 				for c := 0; c < last; c++ {
 					V[c*B+r] = 0
 				}
-				for si := 0; si < ns; si++ {
-					Q[si*B+r] = 0
-				}
+				sc.pos[r] = -1
 				continue
 			}
 			a.Rows++
@@ -336,13 +364,14 @@ func (a *Effects) AddWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch) {
 				m0, m1 = s.Mu0[i], s.Mu1[i]
 			}
 
+			treated := b.T[i] == 1
 			tt := float64(b.T[i])
 			u := 1 - tt
 			sg := tt - u // +1 treated, −1 control
 			ie, ic := 1/e, 1/(1-e)
 			// The row's arm weight and its derivative in e, per estimand.
 			var wATE, dATE, wATT, dATT, wATC, dATC, wOv, dOv float64
-			if b.T[i] == 1 {
+			if treated {
 				wATE, dATE = ie, -ie*ie
 				wATT, dATT = 1, 0
 				wATC, dATC = (1-e)*ie, -ie*ie
@@ -355,71 +384,101 @@ func (a *Effects) AddWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch) {
 			}
 
 			// Horvitz–Thompson: ψ = sign·Y·w.
-			v[cIPWATE], v[cIPWATE+1], dE[cIPWATE] = sg*y*wATE, 1, sg*y*dATE
-			v[cIPWATT], v[cIPWATT+1], dE[cIPWATT] = sg*y*wATT, tt, sg*y*dATT
-			v[cIPWATC], v[cIPWATC+1], dE[cIPWATC] = sg*y*wATC, u, sg*y*dATC
+			V[cIPWATE*B+r], V[(cIPWATE+1)*B+r] = sg*y*wATE, 1
+			V[cIPWATT*B+r], V[(cIPWATT+1)*B+r] = sg*y*wATT, tt
+			V[cIPWATC*B+r], V[(cIPWATC+1)*B+r] = sg*y*wATC, u
 
-			// Hájek, with the written weight for the run's estimand.
-			truncated := trunc && wr >= pol.Cap
-			hajekRow(&v, &dE, cHajATE, run == score.ATE, wATE, dATE, wr, truncated, tt, u, y)
-			hajekRow(&v, &dE, cHajATT, run == score.ATT, wATT, dATT, wr, truncated, tt, u, y)
-			hajekRow(&v, &dE, cHajATC, run == score.ATC, wATC, dATC, wr, truncated, tt, u, y)
-			hajekRow(&v, &dE, cHajOver, run == score.Overlap, wOv, dOv, wr, truncated, tt, u, y)
+			// Hájek, with the written weight for the run's estimand: its
+			// derivative is scaled by stabilization and zeroed by truncation.
+			var wRun, dRun float64
+			switch {
+			case runATE:
+				wRun, dRun = wATE, dATE
+			case runATT:
+				wRun, dRun = wATT, dATT
+			case runATC:
+				wRun, dRun = wATC, dATC
+			case runOv:
+				wRun, dRun = wOv, dOv
+			}
+			if (trunc && wr >= pol.Cap) || wRun == 0 {
+				dRun = 0
+			} else {
+				dRun *= wr / wRun
+			}
+			hajekRow(V, B, r, cHajATE, pick(runATE, wr, wATE), tt, u, y)
+			hajekRow(V, B, r, cHajATT, pick(runATT, wr, wATT), tt, u, y)
+			hajekRow(V, B, r, cHajATC, pick(runATC, wr, wATC), tt, u, y)
+			hajekRow(V, B, r, cHajOver, pick(runOv, wr, wOv), tt, u, y)
 
+			var r1, r0, h, dh, d float64
 			if aug {
-				r1, r0 := y-m1, y-m0
-				v[cAugATE] = m1 - m0 + tt*r1*ie - u*r0*ic
-				v[cAugATE+1] = 1
-				dE[cAugATE] = -tt*r1*ie*ie - u*r0*ic*ic
-				dM1[cAugATE] = 1 - tt*ie
-				dM0[cAugATE] = -1 + u*ic
-
-				v[cAugATT], v[cAugATT+1] = sg*r0*wATT, tt
-				dE[cAugATT] = sg * r0 * dATT
-				dM0[cAugATT] = -sg * wATT
-
-				v[cAugATC], v[cAugATC+1] = sg*r1*wATC, u
-				dE[cAugATC] = sg * r1 * dATC
-				dM1[cAugATC] = -sg * wATC
-
-				h, dh, d := e*(1-e), 1-2*e, m1-m0
+				r1, r0 = y-m1, y-m0
+				V[cAugATE*B+r] = m1 - m0 + tt*r1*ie - u*r0*ic
+				V[(cAugATE+1)*B+r] = 1
+				V[cAugATT*B+r], V[(cAugATT+1)*B+r] = sg*r0*wATT, tt
+				V[cAugATC*B+r], V[(cAugATC+1)*B+r] = sg*r1*wATC, u
+				h, dh, d = e*(1-e), 1-2*e, m1-m0
 				o := cAugOver
-				v[o], dE[o], dM1[o], dM0[o] = h*d, dh*d, h, -h
-				v[o+1], dE[o+1] = h, dh
-				v[o+2], dE[o+2], dM1[o+2] = tt*(1-e)*r1, -tt*r1, -tt*(1-e)
-				v[o+3], dE[o+3] = tt*(1-e), -tt
-				v[o+4], dE[o+4], dM0[o+4] = u*e*r0, u*r0, -u*e
-				v[o+5], dE[o+5] = u*e, u
+				V[o*B+r] = h * d
+				V[(o+1)*B+r] = h
+				V[(o+2)*B+r] = tt * (1 - e) * r1
+				V[(o+3)*B+r] = tt * (1 - e)
+				V[(o+4)*B+r] = u * e * r0
+				V[(o+5)*B+r] = u * e
 			}
 
-			for c := 0; c < last; c++ {
-				V[c*B+r] = v[c]
+			if !grad {
+				continue
 			}
-			if ns > 0 {
-				ge := e * (1 - e)
-				if clip && (e <= clipLo || e >= clipHi) {
-					ge = 0
+			ge := e * (1 - e)
+			if clip && (e <= clipLo || e >= clipHi) {
+				ge = 0
+			}
+			g1, g0 := 1.0, 1.0
+			if logit {
+				g1, g0 = m1*(1-m1), m0*(1-m0)
+			}
+			arm := b2i(treated)
+			k := na[arm]
+			na[arm]++
+			sc.pos[r], sc.at[arm][k] = int32(k), int32(i)
+			P := sc.p[arm][k:]
+			// the series of gradSeries, for the row's arm
+			if treated {
+				P[sE0*B], P[sE1*B] = ge*(y*(ie*ie)), ge*(ie*ie)
+				if aug {
+					P[sE4*B], P[sE7*B] = ge*(r1*(ie*ie)), ge*r1
+					P[sF0*B], P[sF2*B] = g1*((1-e)*ie), g1*(1-e)
+					P[sG0*B], P[sG2*B] = g0, 0
 				}
-				g1, g0 := 1.0, 1.0
-				if logit {
-					g1, g0 = m1*(1-m1), m0*(1-m0)
+			} else {
+				P[sE0*B], P[sE1*B] = ge*(y*(ic*ic)), ge*(ic*ic)
+				if aug {
+					P[sE4*B], P[sE7*B] = ge*(r0*(ic*ic)), ge*r0
+					P[sF0*B], P[sF2*B] = g1, 0
+					P[sG0*B], P[sG2*B] = g0*(e*ic), g0*e
 				}
-				for si, sl := range slots[:ns] {
-					var d float64
-					switch sl.wrt {
-					case wrtE:
-						d = ge * dE[sl.comp]
-					case wrtM1:
-						d = g1 * dM1[sl.comp]
-					default:
-						d = g0 * dM0[sl.comp]
-					}
-					Q[si*B+r] = d
-				}
+			}
+			P[sE2*B], P[sE3*B] = ge*y, ge
+			P[sR0*B], P[sR1*B] = ge*(dRun*y), ge*dRun
+			if aug {
+				P[sE5*B], P[sE6*B] = ge*(dh*d), ge*dh
+				P[sF1*B], P[sG1*B] = g1*h, g0*h
 			}
 		}
-		a.fold(V, Q, B, hi-lo, lo, b.X, aug, ns)
+		a.fold(V, B, hi-lo, aug)
+		if grad {
+			g.block(a.Grad, b.X, b.T, lo, hi, na)
+		}
 	}
+}
+
+func pick(c bool, a, b float64) float64 {
+	if c {
+		return a
+	}
+	return b
 }
 
 // usable reports whether row i enters the estimators, counting it where it
@@ -448,55 +507,29 @@ func (a *Effects) usable(b *fit.Batch, s *score.Scores, i int, aug bool) bool {
 	return ok
 }
 
-// fold adds one block of L rows (batch rows lo…lo+L−1, stored with stride
-// B) into the sums: each
-// a dot product over the block, so every x column is read from memory once
-// per block and the rest comes from cache.
-func (a *Effects) fold(V, Q []float64, B, L, lo int, X [][]float64, aug bool, ns int) {
-	col := func(buf []float64, c int) []float64 { return buf[c*B : c*B+L] }
+// fold adds one block of L rows, stored with stride B, into the sums and
+// cross sums: each a dot product over the block.
+func (a *Effects) fold(V []float64, B, L int, aug bool) {
+	col := func(c int) []float64 { return V[c*B : c*B+L] }
 	k := 0
 	for _, blk := range effectBlocks {
 		if blk.augmented && !aug {
 			break
 		}
 		for r := 0; r < blk.m; r++ {
-			vr := col(V, blk.off+r)
+			vr := col(blk.off + r)
 			a.Sum[blk.off+r].Add(floats.Sum(vr))
 			for c := r; c < blk.m; c++ {
-				a.Cross[k].Add(floats.Dot(vr, col(V, blk.off+c)))
+				a.Cross[k].Add(floats.Dot(vr, col(blk.off+c)))
 				k++
 			}
 		}
 	}
-	if ns == 0 {
-		return
-	}
-	for si := 0; si < ns; si++ {
-		a.Grad[si].Add(floats.Sum(col(Q, si)))
-	}
-	for j, x := range X {
-		xb := x[lo : lo+L]
-		g := a.Grad[(j+1)*nSlots:]
-		for si := 0; si < ns; si++ {
-			g[si].Add(floats.Dot(col(Q, si), xb))
-		}
-	}
 }
 
-// hajekRow sets one Hájek block's components wTY, wT, w(1−T)Y, w(1−T) and
-// their derivatives in e. For the run's own estimand w is the written weight
-// wr: stabilization scales the derivative, truncation zeroes it.
-func hajekRow(v, dE *[nComp]float64, off int, isRun bool, w, dw, wr float64, truncated bool, tt, u, y float64) {
-	if isRun {
-		if truncated {
-			dw = 0
-		} else {
-			dw *= wr / w
-		}
-		w = wr
-	}
-	v[off], v[off+1], v[off+2], v[off+3] = w*tt*y, w*tt, w*u*y, w*u
-	dE[off], dE[off+1], dE[off+2], dE[off+3] = dw*tt*y, dw*tt, dw*u*y, dw*u
+// hajekRow sets one Hájek block's components wTY, wT, w(1−T)Y, w(1−T).
+func hajekRow(V []float64, B, r, off int, w, tt, u, y float64) {
+	V[off*B+r], V[(off+1)*B+r], V[(off+2)*B+r], V[(off+3)*B+r] = w*tt*y, w*tt, w*u*y, w*u
 }
 
 // nAugFree is the number of leading slots that do not need outcome models.

@@ -54,7 +54,7 @@ func (c *cell) add(b *fit.Batch, s *score.Scores, rows *arms, arm []int8, w []fl
 		c.SumW2[a].Add(sw2)
 	}
 	c.Balance.add(b.X, rows, w, hist, bt, arm, sws)
-	c.Effects.AddWith(b, s, eff)
+	c.Effects.addWith(b, s, eff, bt)
 }
 
 // check refuses a decoded cell whose parts lack the model's shape.
