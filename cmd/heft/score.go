@@ -277,6 +277,7 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 			if err != nil {
 				return err
 			}
+			logResources(env, in.Rel)
 		}
 		if err := dir.Success(); err != nil {
 			return outputError{err}
