@@ -212,7 +212,7 @@ func (a *AtomicFile) start() {
 			if a.writeErr() == nil {
 				if _, err := a.out.Write(c); err != nil {
 					a.mu.Lock()
-					a.werr = At(a.target, fmt.Errorf("write: %w", err))
+					a.werr = At(a.target, fmt.Errorf("write: %w", bare(err)))
 					a.mu.Unlock()
 				}
 			}
@@ -279,11 +279,11 @@ func (a *AtomicFile) Commit() error {
 	err := a.drain()
 	if err == nil {
 		if e := a.f.Sync(); e != nil {
-			err = At(a.target, fmt.Errorf("sync: %w", e))
+			err = At(a.target, fmt.Errorf("sync: %w", bare(e)))
 		}
 	}
 	if e := a.f.Close(); e != nil && err == nil {
-		err = At(a.target, fmt.Errorf("close: %w", e))
+		err = At(a.target, fmt.Errorf("close: %w", bare(e)))
 	}
 	if err == nil {
 		if e := os.Rename(a.f.Name(), a.target); e != nil {
@@ -310,6 +310,16 @@ func (a *AtomicFile) Abort() error {
 		return At(a.target, fmt.Errorf("remove temporary output: %w", err))
 	}
 	return nil
+}
+
+// bare drops the temporary file's name from an *fs.PathError: the error
+// names the target, and the temporary name would only confuse.
+func bare(err error) error {
+	var pe *fs.PathError
+	if errors.As(err, &pe) {
+		return pe.Err
+	}
+	return err
 }
 
 func syncDir(dir string) error {

@@ -208,6 +208,7 @@ func TestBadInputs(t *testing.T) {
 		t.Run(c.name, func(t *testing.T) {
 			r := heft(t, c.args...)
 			line := errorLine(t, r.stderr)
+			t.Logf("exit %d: %s", r.code, line) // go test -v prints DEVELOPERS.md's table
 			if r.code != c.code {
 				t.Errorf("exit %d, want %d: %s", r.code, c.code, line)
 			}

@@ -244,6 +244,7 @@ func TestFullDisk(t *testing.T) {
 		t.Run(c.name, func(t *testing.T) {
 			r := heft(t, c.args...)
 			line := errorLine(t, r.stderr)
+			t.Logf("exit %d: %s", r.code, line)
 			if r.code != ExitOutput {
 				t.Errorf("exit %d, want %d: %s", r.code, ExitOutput, line)
 			}
@@ -271,6 +272,7 @@ func TestFullDisk(t *testing.T) {
 		t.Run(c.name, func(t *testing.T) {
 			r := heft(t, c.args...)
 			line := errorLine(t, r.stderr)
+			t.Logf("exit %d: %s", r.code, line)
 			if r.code != ExitOutput {
 				t.Errorf("exit %d, want %d: %s", r.code, ExitOutput, line)
 			}

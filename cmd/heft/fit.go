@@ -110,7 +110,7 @@ func runFit(cmd *cobra.Command, env *Env, f *fitFlags, args []string) error {
 	}
 	m.Reference.WeightQuantiles = score.WeightQuantiles(e, t, m.Reference.ShareTreated)
 	if err := m.Save(f.out); err != nil {
-		return outputError{fmt.Errorf("writing model %s: %w", f.out, err)}
+		return outputError{fmt.Errorf("writing the model: %w", err)}
 	}
 	if !env.Quiet {
 		writeModelSummary(env.Stderr, m)

@@ -319,13 +319,13 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 func finishReport(env *Env, state *aggregate.State, statePath, reportPath string) error {
 	if statePath != "" {
 		if err := state.WriteFile(statePath); err != nil {
-			return outputError{fmt.Errorf("writing state %s: %w", statePath, err)}
+			return outputError{fmt.Errorf("writing the state: %w", err)}
 		}
 	}
 	rep := state.Report()
 	if reportPath != "" {
 		if err := writeReportJSON(env, rep, reportPath); err != nil {
-			return outputError{fmt.Errorf("writing report %s: %w", reportPath, err)}
+			return outputError{fmt.Errorf("writing the report: %w", err)}
 		}
 	}
 	if !env.Quiet {
