@@ -1,5 +1,7 @@
 package aggregate
 
+import "math"
+
 // binaryTerms notes which of a batch's terms hold only 0 and 1 (one-hot
 // levels and missing indicators are so by construction) and, for those, the
 // rows where the term is 1. Sums over such a term need only those rows:
@@ -10,43 +12,67 @@ package aggregate
 type binaryTerms struct {
 	is   []bool
 	ones [][]int32 // per term: ascending rows with x = 1; valid where is[j]
-	buf  [][]int32 // per term, capacity for a whole batch
+	span [][2]int  // per term, its ones in all
+	all  []int32
+	tmp  []int32 // a whole batch's rows
 }
 
-// binaryChunk is how many rows are scanned between checks for a value other
-// than 0 or 1, so a numeric term is given up on after its first chunk.
-const binaryChunk = 64
+// binaryChunk is how many rows are checked between looks at the result,
+// so a numeric term is given up on after its first chunk.
+const binaryChunk = 256
+
+// zeroOne reports whether every x is 0 or 1: Σ|x(x−1)| is 0 exactly then,
+// as no product of x ≠ 0, 1 with x−1 rounds to 0 (for tiny x it is −x, for
+// x near 1 about x−1, which is exact), and a NaN or Inf makes the sum so.
+func zeroOne(x []float64) bool {
+	var s0, s1, s2, s3 float64
+	i := 0
+	for ; i+4 <= len(x); i += 4 {
+		v0, v1, v2, v3 := x[i], x[i+1], x[i+2], x[i+3]
+		s0 += math.Abs(v0 * (v0 - 1))
+		s1 += math.Abs(v1 * (v1 - 1))
+		s2 += math.Abs(v2 * (v2 - 1))
+		s3 += math.Abs(v3 * (v3 - 1))
+	}
+	for ; i < len(x); i++ {
+		s0 += math.Abs(x[i] * (x[i] - 1))
+	}
+	return s0+s1+s2+s3 == 0
+}
 
 // find fills bt for the first n rows of x.
 func (bt *binaryTerms) find(x [][]float64, n int) {
-	p := len(x)
-	if len(bt.is) != p {
-		bt.is = make([]bool, p)
-		bt.ones = make([][]int32, p)
-		bt.buf = make([][]int32, p)
+	bt.none(len(x))
+	bt.all = bt.all[:0]
+	if cap(bt.tmp) < n {
+		bt.tmp = make([]int32, n)
 	}
+	tmp := bt.tmp[:n]
 	for j, col := range x {
-		bt.is[j], bt.ones[j] = false, nil
 		col = col[:n]
 		if n == 0 || (col[0] != 0 && col[0] != 1) {
 			continue
 		}
-		if cap(bt.buf[j]) < n {
-			bt.buf[j] = make([]int32, n)
+		ok := true
+		for lo := 0; lo < n && ok; lo += binaryChunk {
+			ok = zeroOne(col[lo:min(lo+binaryChunk, n)])
 		}
-		buf := bt.buf[j][:n]
-		k, bad := 0, 0
-		for lo := 0; lo < n && bad == 0; lo += binaryChunk {
-			hi := min(lo+binaryChunk, n)
-			// branch-free: the row is written, and kept only if its value is 1
-			for i, v := range col[lo:hi] {
-				buf[k] = int32(lo + i)
-				k += b2i(v == 1)
-				bad += b2i(v != 0) & b2i(v != 1) // NaN too
-			}
+		if !ok {
+			continue
 		}
-		if bad == 0 {
-			bt.is[j], bt.ones[j] = true, buf[:k]
+		// 1 has the lowest exponent bit set, ±0 not: branch-free
+		k := 0
+		for i, v := range col {
+			tmp[k] = int32(i)
+			k += int(math.Float64bits(v) >> 52 & 1)
+		}
+		bt.is[j] = true
+		bt.span[j] = [2]int{len(bt.all), len(bt.all) + k}
+		bt.all = append(bt.all, tmp[:k]...)
+	}
+	for j, sp := range bt.span {
+		if bt.is[j] {
+			bt.ones[j] = bt.all[sp[0]:sp[1]]
 		}
 	}
 }
@@ -56,7 +82,7 @@ func (bt *binaryTerms) none(p int) {
 	if len(bt.is) != p {
 		bt.is = make([]bool, p)
 		bt.ones = make([][]int32, p)
-		bt.buf = make([][]int32, p)
+		bt.span = make([][2]int, p)
 	}
 	clear(bt.is)
 	clear(bt.ones)

@@ -30,10 +30,11 @@ type overlap struct {
 	Top [2][]float64 `json:"top_weights"`
 
 	edges []float64
+	guess binGuess
 }
 
 func newOverlap(edges []float64) *overlap {
-	o := &overlap{edges: edges}
+	o := &overlap{edges: edges, guess: newBinGuess(edges)}
 	nb := max(len(edges)-1, 0)
 	for a := 0; a < 2; a++ {
 		o.Counts[a] = make([]int64, nb)
@@ -78,6 +79,43 @@ func histBin(edges []float64, x float64) int {
 	return k
 }
 
+// binGuess finds histBin's bin by a first guess that is right for evenly
+// spaced edges (the model's propensity edges are), then steps to the exact
+// bin, so uneven edges only cost more steps.
+type binGuess struct {
+	lo, scale float64
+	last      int // the last bin
+}
+
+func newBinGuess(edges []float64) binGuess {
+	g := binGuess{last: len(edges) - 2}
+	if len(edges) >= 2 {
+		if span := edges[len(edges)-1] - edges[0]; span > 0 {
+			g.lo, g.scale = edges[0], float64(len(edges)-1)/span
+		}
+	}
+	return g
+}
+
+// bin is histBin(edges, x) for the edges g was made from.
+func (g *binGuess) bin(edges []float64, x float64) int {
+	f := (x - g.lo) * g.scale
+	if !(f >= 0) { // also NaN
+		f = 0
+	}
+	if f > float64(g.last) {
+		f = float64(g.last)
+	}
+	k := int(f)
+	for k < g.last && edges[k+1] <= x {
+		k++
+	}
+	for k > 0 && edges[k] > x {
+		k--
+	}
+	return k
+}
+
 // add folds in one batch: e propensities, rows and w as for armMoments;
 // hist is scratch of at least the number of bins.
 func (o *overlap) add(e []float64, rows *arms, w []float64, hist []float64) {
@@ -96,7 +134,7 @@ func (o *overlap) add(e []float64, rows *arms, w []float64, hist []float64) {
 				above++
 			}
 			if nb > 0 {
-				k := histBin(o.edges, ei)
+				k := o.guess.bin(o.edges, ei)
 				counts[k]++
 				h[k] += w[i]
 			}
