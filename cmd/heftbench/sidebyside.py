@@ -26,18 +26,21 @@ def run_once(cmd):
 
 
 def main():
+    argv = sys.argv[1:]
+    first = argv.index("--name") if "--name" in argv else len(argv)
     ap = argparse.ArgumentParser()
     ap.add_argument("-n", type=int, default=5)
     ap.add_argument("--warmup", type=int, default=1)
-    ap.add_argument("rest", nargs=argparse.REMAINDER)
-    a = ap.parse_args()
+    a = ap.parse_args(argv[:first])
     names, cmds = [], []
-    it = iter(a.rest)
+    it = iter(argv[first:])
     for tok in it:
-        if tok == "--name":
-            names.append(next(it))
-            assert next(it) == "--"
-            cmds.append(next(it))
+        if tok != "--name":
+            sys.exit("expected --name NAME -- CMD, got %r" % tok)
+        names.append(next(it))
+        if next(it) != "--":
+            sys.exit("expected -- after --name %s" % names[-1])
+        cmds.append(next(it))
     for _ in range(a.warmup):
         for c in cmds:
             run_once(c)
