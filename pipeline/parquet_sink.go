@@ -100,6 +100,8 @@ type parquetSink struct {
 	workers  int
 	ones     []int16 // definition levels of an all-valid column
 	scratch  [][]int16
+	mem      memory.Allocator
+	strDicts []strDict         // per column, for the current row group
 	ctxs     []context.Context // one Arrow write context per worker
 	err      error             // sticky
 	closed   bool
@@ -173,6 +175,8 @@ func newParquetSink(w io.Writer, name string, schema *arrow.Schema, opt ParquetS
 		maxRows:  rows,
 		workers:  workers,
 		scratch:  make([][]int16, workers),
+		mem:      mem,
+		strDicts: make([]strDict, len(schema.Fields())),
 		ctxs:     make([]context.Context, workers),
 	}
 	for i := range s.ctxs {
@@ -461,7 +465,89 @@ func (s *parquetSink) writeColumn(w, i int, arr arrow.Array) (err error) {
 	if cw.Descr().MaxDefinitionLevel() > 0 {
 		def = s.defLevels(w, arr)
 	}
+	if str, ok := arr.(*array.String); ok && dictEncoding(cw.CurrentEncoder().Encoding()) {
+		if d := s.strDicts[i].encode(s.mem, str); d != nil {
+			defer d.Release()
+			arr = d
+		}
+	}
 	return pqarrow.WriteArrowToColumn(s.ctxs[w], cw, arr, def, nil, s.schema.Field(i).Nullable)
+}
+
+func dictEncoding(e parquet.Encoding) bool {
+	return e == parquet.Encodings.PlainDict || e == parquet.Encodings.RLEDict
+}
+
+// strDictLimit bounds the levels strDict keeps for one row group; past it a
+// column is left to the library (it falls back to plain encoding at 1 MiB
+// of dictionary anyway).
+const strDictLimit = 1 << 16
+
+// strDict turns a string column into an Arrow dictionary array whose
+// dictionary stays the same for a whole row group, so that pqarrow
+// takes its direct path: it writes the indices and hashes only the
+// dictionary, where a plain string array costs a boxed hash lookup per
+// value. The dictionary is the levels of the row group's first batch; a
+// later batch with a level outside it is handed over as plain strings,
+// which pqarrow adds to the same column dictionary (the Parquet bytes are
+// the same either way; only the time differs).
+type strDict struct {
+	index map[string]int32
+	dict  arrow.Array // levels in index order
+	off   bool        // too many levels: leave this row group to the library
+}
+
+func (d *strDict) reset() {
+	if d.dict != nil {
+		d.dict.Release()
+	}
+	*d = strDict{}
+}
+
+// encode returns str as a dictionary array, or nil to write it as it is.
+func (d *strDict) encode(mem memory.Allocator, str *array.String) arrow.Array {
+	if d.off {
+		return nil
+	}
+	first := d.dict == nil
+	if first {
+		d.index = make(map[string]int32)
+	}
+	var levels []string
+	b := array.NewInt32Builder(mem)
+	defer b.Release()
+	b.Reserve(str.Len())
+	for i := 0; i < str.Len(); i++ {
+		if str.IsNull(i) {
+			b.UnsafeAppendBoolToBitmap(false)
+			continue
+		}
+		v := str.Value(i)
+		k, ok := d.index[v]
+		if !ok {
+			if !first {
+				return nil
+			}
+			if len(levels) == strDictLimit {
+				d.off = true
+				return nil
+			}
+			k = int32(len(levels))
+			v = strings.Clone(v) // str's buffer goes back to its owner
+			d.index[v] = k
+			levels = append(levels, v)
+		}
+		b.UnsafeAppend(k)
+	}
+	if first {
+		sb := array.NewStringBuilder(mem)
+		sb.AppendValues(levels, nil)
+		d.dict = sb.NewArray()
+		sb.Release()
+	}
+	idx := b.NewArray()
+	defer idx.Release()
+	return array.NewDictionaryArray(&arrow.DictionaryType{IndexType: arrow.PrimitiveTypes.Int32, ValueType: arrow.BinaryTypes.String}, idx, d.dict)
 }
 
 // defLevels returns the definition levels of a flat optional column: 1 for
@@ -495,10 +581,17 @@ func (s *parquetSink) closeRowGroup() error {
 	}
 	err := s.rgw.Close()
 	s.rgw = nil
+	s.resetDicts()
 	if err != nil {
 		return s.fail(rg, "", err)
 	}
 	return nil
+}
+
+func (s *parquetSink) resetDicts() {
+	for i := range s.strDicts {
+		s.strDicts[i].reset()
+	}
 }
 
 func (s *parquetSink) fail(rowGroup int, column string, err error) error {
@@ -528,6 +621,7 @@ func (s *parquetSink) Close() error {
 	} else if s.fw != nil {
 		s.fw.Close()
 	}
+	s.resetDicts()
 	if s.atomic == nil {
 		return s.err
 	}
@@ -555,6 +649,7 @@ func (s *parquetSink) Abort() error {
 		s.err = At(s.name, errors.New("aborted"))
 	}
 	if s.atomic == nil {
+		s.resetDicts()
 		return nil
 	}
 	// Finishing into the doomed temporary file releases the encoder's buffers.
@@ -565,6 +660,7 @@ func (s *parquetSink) Abort() error {
 	if s.fw != nil {
 		s.fw.Close()
 	}
+	s.resetDicts()
 	return s.atomic.Abort()
 }
 

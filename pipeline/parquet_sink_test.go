@@ -424,3 +424,42 @@ func int8s(mem memory.Allocator, v ...int8) arrow.Array {
 	b.AppendValues(v, nil)
 	return b.NewArray()
 }
+
+func TestStrDict(t *testing.T) {
+	mem := memory.NewCheckedAllocator(memory.NewGoAllocator())
+	strs := func(v ...string) *array.String {
+		b := array.NewStringBuilder(mem)
+		defer b.Release()
+		for _, s := range v {
+			if s == "" {
+				b.AppendNull()
+			} else {
+				b.Append(s)
+			}
+		}
+		return b.NewStringArray()
+	}
+	var d strDict
+	a := strs("b", "", "a", "b")
+	first := d.encode(mem, a).(*array.Dictionary)
+	if got := first.Dictionary().(*array.String); got.Len() != 2 || got.Value(0) != "b" || got.Value(1) != "a" {
+		t.Errorf("dictionary %v, want [b a] in first-seen order", got)
+	}
+	if idx := first.Indices().(*array.Int32); idx.Value(0) != 0 || idx.IsValid(1) || idx.Value(2) != 1 || idx.Value(3) != 0 {
+		t.Errorf("indices %v", idx)
+	}
+	b := strs("a", "a")
+	again := d.encode(mem, b).(*array.Dictionary)
+	if !array.Equal(again.Dictionary(), first.Dictionary()) {
+		t.Error("a later batch got another dictionary; pqarrow would fall back to plain encoding")
+	}
+	c := strs("a", "c")
+	if got := d.encode(mem, c); got != nil {
+		t.Error("a new level was not left to the library")
+	}
+	for _, x := range []arrow.Array{a, b, c, first, again} {
+		x.Release()
+	}
+	d.reset()
+	mem.AssertSize(t, 0)
+}
