@@ -520,11 +520,27 @@ func (a *Effects) fold(V []float64, B, L int, aug bool) {
 			vr := col(blk.off + r)
 			a.Sum[blk.off+r].Add(floats.Sum(vr))
 			for c := r; c < blk.m; c++ {
-				a.Cross[k].Add(floats.Dot(vr, col(blk.off+c)))
+				if !armsApart(blk, r, c) {
+					a.Cross[k].Add(floats.Dot(vr, col(blk.off+c)))
+				}
 				k++
 			}
 		}
 	}
+}
+
+// armsApart reports whether components r and c of blk are never both
+// nonzero on one row, one being 0 on control rows and the other on treated
+// rows (Hájek's wTY, wT against w(1−T)Y, w(1−T); the augmented overlap's
+// T(1−e)… against (1−T)e…), so their cross sum is 0 and is skipped.
+func armsApart(blk block, r, c int) bool {
+	switch {
+	case blk.estimator == EstimatorHajek:
+		return r < 2 && c >= 2
+	case blk.estimand == score.Overlap && blk.augmented:
+		return (r == 2 || r == 3) && c >= 4
+	}
+	return false
 }
 
 // hajekRow sets one Hájek block's components wTY, wT, w(1−T)Y, w(1−T).

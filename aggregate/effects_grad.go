@@ -35,6 +35,9 @@ const (
 	nSeries
 )
 
+// The sums over the ones in block are written out for 16 series.
+var _ = [1]int{}[nSeries-16]
+
 // nSeriesAugFree is the number of leading series that need no outcome
 // models; the slots below nAugFree use only these.
 const nSeriesAugFree = sE4
@@ -159,19 +162,42 @@ func (g *gradFold) block(grad []Sum, X [][]float64, T []int8, lo, hi int, na [2]
 			continue
 		}
 		ones, c := g.bt.ones[j], sc.cur[j]
+		var acc [2][nSeries]float64
 		for ; c < len(ones) && int(ones[c]) < hi; c++ {
 			i := ones[c]
-			r := sc.pos[int(i)-lo]
+			r := int(sc.pos[int(i)-lo])
 			if r < 0 {
 				continue
 			}
-			P := sc.p[T[i]][r:]
-			Sj := sc.ser[T[i]][(j+1)*nSeries : (j+2)*nSeries]
-			for k := range Sj[:nser] {
-				Sj[k] += P[k*B]
+			a := T[i] & 1
+			P := sc.p[a]
+			if r+(nSeries-1)*B >= len(P) {
+				continue // never: lets the compiler drop the bounds checks
 			}
+			s := &acc[a]
+			// every series (with the outcome models off, the tail is stale
+			// and never used)
+			s[0] += P[r]
+			s[1] += P[r+B]
+			s[2] += P[r+2*B]
+			s[3] += P[r+3*B]
+			s[4] += P[r+4*B]
+			s[5] += P[r+5*B]
+			s[6] += P[r+6*B]
+			s[7] += P[r+7*B]
+			s[8] += P[r+8*B]
+			s[9] += P[r+9*B]
+			s[10] += P[r+10*B]
+			s[11] += P[r+11*B]
+			s[12] += P[r+12*B]
+			s[13] += P[r+13*B]
+			s[14] += P[r+14*B]
+			s[15] += P[r+15*B]
 		}
 		sc.cur[j] = c
+		for a := range acc {
+			copy(sc.ser[a][(j+1)*nSeries:(j+1)*nSeries+nser], acc[a][:nser])
+		}
 	}
 	for j := 0; j < g.p; j++ {
 		s0, s1 := sc.ser[0][j*nSeries:(j+1)*nSeries], sc.ser[1][j*nSeries:(j+1)*nSeries]

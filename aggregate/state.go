@@ -262,14 +262,14 @@ func (s *State) Policy() score.Policy { return s.sh.policy }
 func (s *State) Add(rec arrow.RecordBatch, b *fit.Batch, sc *score.Scores) error {
 	sh := s.sh
 	n := b.N
-	if err := checkBatch(sh, b, sc); err != nil {
-		return err
-	}
 	x := sh.pool.Get().(*scratch)
 	defer func() {
 		clear(x.cols) // keep no reference to the batch's columns
 		sh.pool.Put(x)
 	}()
+	if err := checkBatch(sh, b, sc, &x.bin); err != nil {
+		return err
+	}
 
 	var segCols []arrow.Array
 	if sh.seg != nil {
@@ -310,7 +310,6 @@ func (s *State) Add(rec arrow.RecordBatch, b *fit.Batch, sc *score.Scores) error
 	}
 
 	x.rows.split(arm)
-	x.bin.find(b.X, n)
 	a.Whole.add(b, sc, &x.rows, arm, w, x.hist, &x.bin, &x.eff)
 	a.Overlap.add(sc.E, &x.rows, w, x.hist)
 	a.Drift.add(sc.E, &x.rows)
@@ -334,8 +333,9 @@ func (s *State) Add(rec arrow.RecordBatch, b *fit.Batch, sc *score.Scores) error
 const maxMagnitude = 1.3407807929942596e154 // sqrt(math.MaxFloat64)
 
 // checkBatch refuses a batch whose buffers do not match, or that carries a
-// term that is not finite (naming the term and the batch row).
-func checkBatch(sh *shared, b *fit.Batch, sc *score.Scores) error {
+// term that is not finite (naming the term and the batch row). It finds the
+// batch's 0/1 terms into bt on the way: those are finite.
+func checkBatch(sh *shared, b *fit.Batch, sc *score.Scores, bt *binaryTerms) error {
 	n := b.N
 	if sc.N != n {
 		return fmt.Errorf("aggregate: scores have %d rows, the batch %d", sc.N, n)
@@ -353,6 +353,16 @@ func checkBatch(sh *shared, b *fit.Batch, sc *score.Scores) error {
 		return errors.New("aggregate: outcome predictions are missing or shorter than the batch")
 	}
 	for j, col := range b.X {
+		if len(col) < n {
+			return &pipeline.Error{RowGroup: -1, Row: -1, Column: sh.terms[j],
+				Err: fmt.Errorf("aggregate: term has %d values for a batch of %d rows", len(col), n)}
+		}
+	}
+	bt.find(b.X, n)
+	for j, col := range b.X {
+		if bt.is[j] {
+			continue
+		}
 		var sum2 float64
 		for _, v := range col[:n] {
 			sum2 += v * v
