@@ -190,7 +190,8 @@ func TestSignalStop(t *testing.T) {
 				t.Errorf("stopped %v after the signal, want within 1 s", took)
 			}
 			line := errorLine(t, stderr.String())
-			if !strings.Contains(line, "interrupted") && !strings.Contains(line, "canceled") {
+			t.Logf("%v after %v: %s", sig, took, line)
+			if !strings.Contains(line, sig.String()+" signal received: stopped") {
 				t.Errorf("message %q does not say the run was stopped", line)
 			}
 			if visible, hidden := dirFiles(t, out); len(visible)+len(hidden) > 0 {

@@ -40,6 +40,11 @@ func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.
 		return ExitOK
 	}
 	code = exitCode(ctx, err)
+	if code == ExitInterrupted && ctx.Err() != nil {
+		// "context canceled" says nothing to the person who pressed Ctrl-C.
+		fmt.Fprintf(stderr, "heft: %v: stopped; incomplete outputs were removed\n", context.Cause(ctx))
+		return code
+	}
 	fmt.Fprintf(stderr, "heft: %v\n", err)
 	if code == ExitUsage {
 		fmt.Fprintln(stderr, "Run 'heft --help' for usage.")
