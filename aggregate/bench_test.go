@@ -122,6 +122,7 @@ func BenchmarkStateAdd(b *testing.B) {
 			run, rec, bt, sc := benchInput(b, c.outcome, c.segments, c.levels)
 			b.ReportAllocs()
 			b.ResetTimer()
+			cpu0 := cpuSeconds()
 			for i := 0; i < b.N; i++ {
 				s := run.Empty()
 				if err := s.Add(rec, bt, sc); err != nil {
@@ -132,6 +133,7 @@ func BenchmarkStateAdd(b *testing.B) {
 				}
 			}
 			b.ReportMetric(float64(bt.N)*float64(b.N)/b.Elapsed().Seconds(), "rows/s")
+			b.ReportMetric((cpuSeconds()-cpu0)*1e9/(float64(bt.N)*float64(b.N)), "cpu-ns/row")
 		})
 	}
 }

@@ -53,18 +53,21 @@ func (bt *binaryTerms) find(x [][]float64, n int) {
 		if n == 0 || (col[0] != 0 && col[0] != 1) {
 			continue
 		}
-		ok := true
+		// chunk by chunk, so the ones are collected while the chunk is in
+		// cache
+		ok, k := true, 0
 		for lo := 0; lo < n && ok; lo += binaryChunk {
-			ok = zeroOne(col[lo:min(lo+binaryChunk, n)])
+			c := col[lo:min(lo+binaryChunk, n)]
+			if ok = zeroOne(c); ok {
+				// 1 has the lowest exponent bit set, ±0 not: branch-free
+				for i, v := range c {
+					tmp[k] = int32(lo + i)
+					k += int(math.Float64bits(v) >> 52 & 1)
+				}
+			}
 		}
 		if !ok {
 			continue
-		}
-		// 1 has the lowest exponent bit set, ±0 not: branch-free
-		k := 0
-		for i, v := range col {
-			tmp[k] = int32(i)
-			k += int(math.Float64bits(v) >> 52 & 1)
 		}
 		bt.is[j] = true
 		bt.span[j] = [2]int{len(bt.all), len(bt.all) + k}

@@ -472,6 +472,9 @@ func (a *Effects) addWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch, bt 
 			g.block(a.Grad, b.X, b.T, lo, hi, na)
 		}
 	}
+	if grad {
+		g.flush(a.Grad)
+	}
 }
 
 func pick(c bool, a, b float64) float64 {

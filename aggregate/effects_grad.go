@@ -112,6 +112,7 @@ type gradFold struct {
 	bt          *binaryTerms
 	src         [nSlots][2]src
 	p, ns, nser int
+	blocks      int // since the last flush
 }
 
 func (g *gradFold) init(sc *EffectsScratch, bt *binaryTerms, run string, p, ns, nser int) {
@@ -119,6 +120,7 @@ func (g *gradFold) init(sc *EffectsScratch, bt *binaryTerms, run string, p, ns, 
 		if len(sc.ser[a]) != p*nSeries {
 			sc.ser[a] = make([]float64, p*nSeries)
 		}
+		clear(sc.ser[a])
 	}
 	if cap(sc.cur) < p {
 		sc.cur = make([]int, p)
@@ -128,20 +130,20 @@ func (g *gradFold) init(sc *EffectsScratch, bt *binaryTerms, run string, p, ns, 
 	*g = gradFold{sc: sc, bt: bt, src: slotSources(run), p: p, ns: ns, nser: nser}
 }
 
-// block adds the gradient sums of batch rows lo…hi−1, whose series are in
-// the scratch (na[a] rows of arm a), into grad.
+// block adds the series sums of batch rows lo…hi−1, whose series are in
+// the scratch (na[a] rows of arm a), flushing them into grad every
+// flushBlocks blocks; the caller flushes the rest.
 func (g *gradFold) block(grad []Sum, X [][]float64, T []int8, lo, hi int, na [2]int) {
 	sc, B, nser := g.sc, g.sc.rows, g.nser
 	for a := 0; a < 2; a++ {
 		S := sc.ser[a]
-		clear(S)
 		n := na[a]
 		if n == 0 {
 			continue
 		}
 		P := sc.p[a]
 		for k := 0; k < nser; k++ {
-			S[k] = floats.Sum(P[k*B : k*B+n])
+			S[k] += floats.Sum(P[k*B : k*B+n])
 		}
 		at, xg := sc.at[a][:n], sc.xg[:n]
 		for j, x := range X {
@@ -153,7 +155,7 @@ func (g *gradFold) block(grad []Sum, X [][]float64, T []int8, lo, hi int, na [2]
 			}
 			Sj := S[(j+1)*nSeries:]
 			for k := 0; k < nser; k++ {
-				Sj[k] = floats.Dot(P[k*B:k*B+n], xg)
+				Sj[k] += floats.Dot(P[k*B:k*B+n], xg)
 			}
 		}
 	}
@@ -196,9 +198,26 @@ func (g *gradFold) block(grad []Sum, X [][]float64, T []int8, lo, hi int, na [2]
 		}
 		sc.cur[j] = c
 		for a := range acc {
-			copy(sc.ser[a][(j+1)*nSeries:(j+1)*nSeries+nser], acc[a][:nser])
+			S := sc.ser[a][(j+1)*nSeries : (j+1)*nSeries+nser]
+			for k := range S {
+				S[k] += acc[a][k]
+			}
 		}
 	}
+	g.blocks++
+	if g.blocks == flushBlocks {
+		g.flush(grad)
+	}
+}
+
+// flushBlocks is how many blocks' series sums are added up (plainly, a few
+// terms) before they go into the compensated gradient sums.
+const flushBlocks = 8
+
+// flush adds the series sums into grad, slot by slot, and clears them.
+func (g *gradFold) flush(grad []Sum) {
+	sc := g.sc
+	g.blocks = 0
 	for j := 0; j < g.p; j++ {
 		s0, s1 := sc.ser[0][j*nSeries:(j+1)*nSeries], sc.ser[1][j*nSeries:(j+1)*nSeries]
 		gj := grad[j*nSlots : j*nSlots+g.ns]
@@ -214,4 +233,6 @@ func (g *gradFold) block(grad []Sum, X [][]float64, T []int8, lo, hi int, na [2]
 			gj[si].Add(v)
 		}
 	}
+	clear(sc.ser[0])
+	clear(sc.ser[1])
 }

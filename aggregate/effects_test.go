@@ -413,11 +413,13 @@ func BenchmarkEffectsAdd(bm *testing.B) {
 	b, s := benchBatch(n, 20)
 	a := NewEffects(EffectsConfig{Policy: score.Policy{Estimand: score.ATE}, HasOutcome: true, OutcomeKind: "continuous", NTerms: 21})
 	iters := 0
+	cpu0 := cpuSeconds()
 	for bm.Loop() {
 		a.Add(b, s)
 		iters++
 	}
 	bm.ReportMetric(float64(n)*float64(iters)/bm.Elapsed().Seconds(), "rows/s")
+	bm.ReportMetric((cpuSeconds()-cpu0)*1e9/(float64(n)*float64(iters)), "cpu-ns/row")
 }
 
 // TestEffectsCorruptState: a state whose sums do not fit its configuration
