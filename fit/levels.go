@@ -8,6 +8,8 @@ import (
 	"slices"
 	"strconv"
 	"strings"
+
+	"github.com/heft-project/heft/pipeline"
 )
 
 // DefaultMinLevel is the minimum count a categorical level needs in the fit
@@ -259,6 +261,9 @@ func buildEncoding(fr *Frame, missing string, minLevel int) ([]ColumnSpec, map[s
 			}
 		} else {
 			lv, _ := countLevels(c)
+			if len(lv) > 1 && lv[0].n < minLevel {
+				return nil, counts, allRare(fr, c, lv, minLevel)
+			}
 			s.Reference = lv[0].text
 			for _, l := range lv[1:] {
 				if l.n >= minLevel {
@@ -283,4 +288,34 @@ func buildEncoding(fr *Frame, missing string, minLevel int) ([]ColumnSpec, map[s
 		counts = nil
 	}
 	return specs, counts, nil
+}
+
+// allRare explains a categorical column none of whose levels is common
+// enough to keep: every value would be pooled into one term, and the fit
+// would fail with a separation that names no cause. The usual cause is a
+// numeric column read as text because of one value that is not a number
+// (a CSV typo), so such a value is located.
+func allRare(fr *Frame, c *FrameColumn, lv []levelCount, minLevel int) error {
+	numeric := func(s string) bool {
+		_, err := strconv.ParseFloat(strings.TrimSpace(s), 64)
+		return err == nil
+	}
+	words := 0
+	for _, l := range lv {
+		if !numeric(l.text) {
+			words++
+		}
+	}
+	msg := fmt.Sprintf("no level of this categorical column occurs %d times (%d distinct values in %d rows), so every level would be pooled into one",
+		minLevel, len(lv), fr.n)
+	if words > 0 && words*10 <= len(lv) {
+		for i, k := range c.Codes {
+			if k >= 0 && !numeric(c.Dict[k]) {
+				return fr.errAt(i, c.Name, fmt.Errorf("%s; all but %d of its values are numbers: is %q, here, a stray word in a numeric column?", msg, words, c.Dict[k]))
+			}
+		}
+	}
+	first := fr.Origin(0)
+	return &pipeline.Error{File: first.File, RowGroup: -1, Row: -1, Column: c.Name,
+		Err: fmt.Errorf("%s; lower the minimum level count or leave the column out", msg)}
 }

@@ -171,6 +171,7 @@ func TestBadInputs(t *testing.T) {
 		{"covariate missing", score(bad("missing_covariate.parquet")), ExitInput, []string{"missing_covariate.parquet", `column "x2"`, "not found"}},
 		{"covariate missing, fit", fitArgs("m.json", bad("missing_covariate.parquet")), ExitInput, []string{"missing_covariate.parquet", "x2"}},
 		{"string where a number is expected", score(bad("wrong_type.parquet")), ExitInput, []string{"wrong_type.parquet", `column "x1"`, "utf8", "float64"}},
+		{"CSV: a word in a numeric column", fitArgs("m.json", bad("word_in_numbers.csv")), ExitInput, []string{"word_in_numbers.csv", "row 17", `column "x1"`, `"n/a?"`, "numeric column"}},
 		{"CSV: a row with a field too many", fitArgs("m.json", bad("ragged.csv")), ExitInput, []string{"ragged.csv", "row 17", "line 19", "wrong number of fields"}},
 		{"treatment 1/2", fitArgs("m.json", bad("treatment_1_2.parquet")), ExitInput, []string{"treatment_1_2.parquet", `treatment column "t"`, "0/1", `"2"`}},
 		{"treatment strings", fitArgs("m.json", "--treated-value", "yes", bad("treatment_strings.parquet")), ExitInput, []string{"treatment_strings.parquet", `treatment column "t"`, "two arms", `"maybe"`}},

@@ -315,6 +315,18 @@ func write(dir string) error {
 		csv.WriteString("\n")
 	}
 	files["ragged.csv"] = csv.Bytes()
+	// A CSV sample with a word in data row 17 of a numeric column: the
+	// column is read as text.
+	var word bytes.Buffer
+	word.WriteString("x1,x2,grp,t,y\n")
+	for i := 0; i < 40; i++ {
+		x1 := fmt.Sprint(b.x1[i])
+		if i == 17 {
+			x1 = "n/a?"
+		}
+		fmt.Fprintf(&word, "%s,%d,%s,%d,%v\n", x1, b.x2[i], b.grp[i], b.t[i], b.y[i])
+	}
+	files["word_in_numbers.csv"] = word.Bytes()
 
 	for name, data := range files {
 		if err := os.WriteFile(filepath.Join(dir, name), data, 0o644); err != nil {
