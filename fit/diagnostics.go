@@ -10,44 +10,54 @@ import (
 // control; other values and NaN scores are skipped): the probability that
 // a random treated row scores above a random control row, ties counted
 // 1/2. It is the Mann–Whitney U of the treated over n1·n0 (Hanley & McNeil
-// 1982), from mid-ranks after one sort, O(n log n). NaN when an arm is
-// empty.
+// 1982), from mid-ranks after sorting each arm, O(n log n). NaN when an arm
+// is empty.
 func AUC(score []float64, t []int8) float64 {
-	type pt struct {
-		s float64
-		t int8
-	}
-	pts := make([]pt, 0, len(score))
+	var s1, s0 []float64
 	for i, s := range score {
-		if i < len(t) && (t[i] == 0 || t[i] == 1) && !math.IsNaN(s) {
-			pts = append(pts, pt{s, t[i]})
+		if i < len(t) && !math.IsNaN(s) {
+			switch t[i] {
+			case 1:
+				s1 = append(s1, s)
+			case 0:
+				s0 = append(s0, s)
+			}
 		}
 	}
-	slices.SortFunc(pts, func(a, b pt) int {
-		switch {
-		case a.s < b.s:
-			return -1
-		case a.s > b.s:
-			return 1
-		}
-		return 0
-	})
+	slices.Sort(s1)
+	slices.Sort(s0)
+	return aucSorted(s1, s0)
+}
+
+// aucSorted is AUC from the ascending scores of each arm (no NaN): the
+// merge of the two gives the pooled order, and the treated rank sum is
+// taken over its tie groups with mid-ranks.
+func aucSorted(s1, s0 []float64) float64 {
 	var n1, n0 float64
 	var rankSum float64 // of the treated, ranks from 1, mid-ranks for ties
-	for i := 0; i < len(pts); {
-		j := i
-		var k1 float64
-		for j < len(pts) && pts[j].s == pts[i].s {
-			if pts[j].t == 1 {
-				k1++
-			}
-			j++
+	a, b := 0, 0
+	for a < len(s1) || b < len(s0) {
+		v := math.Inf(1)
+		if a < len(s1) {
+			v = s1[a]
 		}
+		if b < len(s0) && (a >= len(s1) || s0[b] < v) {
+			v = s0[b]
+		}
+		i := a + b
+		a0 := a
+		for a < len(s1) && s1[a] == v {
+			a++
+		}
+		for b < len(s0) && s0[b] == v {
+			b++
+		}
+		j := a + b
+		k1 := float64(a - a0)
 		mid := float64(i+1+j) / 2 // mean of ranks i+1..j
 		rankSum += k1 * mid
 		n1 += k1
 		n0 += float64(j-i) - k1
-		i = j
 	}
 	if n1 == 0 || n0 == 0 {
 		return math.NaN()
@@ -62,7 +72,22 @@ func AUC(score []float64, t []int8) float64 {
 // Q = x_(⌊h⌋) + (h − ⌊h⌋)(x_(⌊h⌋+1) − x_(⌊h⌋)), 0-based order statistics.
 // NaNs are ignored and x is not modified; nil when no value is left.
 func Quantiles(x []float64, qs []float64) []Quantile {
-	s := sortedFinite(x)
+	s := finite(x)
+	if len(s) == 0 {
+		return nil
+	}
+	selectRanks(s, ranksFor(len(s), qs))
+	out := make([]Quantile, len(qs))
+	at := func(r int) float64 { return s[r] }
+	for k, q := range qs {
+		out[k] = Quantile{Q: q, Value: quantileBy(len(s), q, at)}
+	}
+	return out
+}
+
+// QuantilesSorted is Quantiles of s already sorted ascending without NaN,
+// sparing the copy; nil when s is empty.
+func QuantilesSorted(s []float64, qs []float64) []Quantile {
 	if len(s) == 0 {
 		return nil
 	}
@@ -73,14 +98,14 @@ func Quantiles(x []float64, qs []float64) []Quantile {
 	return out
 }
 
-func sortedFinite(x []float64) []float64 {
+// finite is a copy of x without its NaNs.
+func finite(x []float64) []float64 {
 	s := make([]float64, 0, len(x))
 	for _, v := range x {
 		if !math.IsNaN(v) {
 			s = append(s, v)
 		}
 	}
-	slices.Sort(s)
 	return s
 }
 
@@ -88,36 +113,21 @@ func sortedFinite(x []float64) []float64 {
 // does (from the upper neighbour when the fraction is ≥ 1/2) so results
 // agree to the last bit in most cases.
 func quantileSorted(s []float64, q float64) float64 {
-	q = math.Min(math.Max(q, 0), 1)
-	h := float64(len(s)-1) * q
-	lo := math.Floor(h)
-	i := int(lo)
-	if i >= len(s)-1 {
+	i, t, last := type7At(len(s), q)
+	if last {
 		return s[len(s)-1]
 	}
-	t := h - lo
-	a, b := s[i], s[i+1]
-	if t >= 0.5 {
-		return b - (b-a)*(1-t)
-	}
-	return a + (b-a)*t
+	return interp7(s[i], s[i+1], t)
 }
 
 // DecileEdges returns the distinct interior deciles of x, q = 0.1, …, 0.9
 // (definition 7, as Quantiles), ascending; nil when x has no non-NaN value.
 func DecileEdges(x []float64) []float64 {
-	s := sortedFinite(x)
+	s := finite(x)
 	if len(s) == 0 {
 		return nil
 	}
-	out := make([]float64, 0, 9)
-	for k := 1; k <= 9; k++ {
-		v := quantileSorted(s, float64(k)/10)
-		if len(out) == 0 || v > out[len(out)-1] {
-			out = append(out, v)
-		}
-	}
-	return out
+	return decilesSelect(s)
 }
 
 // Histogram counts x in the bins [e_k, e_k+1), k = 0 … len(edges)−2, the
@@ -138,6 +148,33 @@ func Histogram(x []float64, edges []float64) []float64 {
 		k := sort.Search(len(edges), func(i int) bool { return edges[i] > v })
 		b := min(max(k-1, 0), nb-1)
 		counts[b]++
+	}
+	return counts
+}
+
+// histogramSorted is Histogram of the union of ascending slices without
+// NaN, by binary search per edge rather than per value: with edges
+// ascending, the number of edges ≤ v is at least m exactly when
+// v ≥ e_(m−1).
+func histogramSorted(edges []float64, parts ...[]float64) []float64 {
+	nb := len(edges) - 1
+	if nb < 1 {
+		return nil
+	}
+	counts := make([]float64, nb)
+	for _, s := range parts {
+		// ge(m) = #{v: at least m edges ≤ v}; ge(0) = len(s).
+		prev := len(s)
+		for m := 1; m <= len(edges)+1; m++ {
+			ge := 0
+			if m <= len(edges) {
+				ge = len(s) - sort.SearchFloat64s(s, edges[m-1])
+			}
+			k := m - 1 // prev − ge values have exactly k edges ≤ v
+			b := min(max(k-1, 0), nb-1)
+			counts[b] += float64(prev - ge)
+			prev = ge
+		}
 	}
 	return counts
 }

@@ -5,8 +5,11 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"runtime"
 	"slices"
 	"sort"
+	"sync"
+	"sync/atomic"
 	"time"
 )
 
@@ -96,8 +99,9 @@ func Fit(ctx context.Context, fr *Frame, opt Options) (m *Model, e []float64, t 
 			return nil, nil, nil, err
 		}
 	}
-	m.Diagnostics = diagnostics(fr, e, t, n1, missing)
-	m.Reference = reference(X, terms, e, t, n1)
+	e1, e0 := sortArms(e, t, n1)
+	m.Diagnostics = diagnostics(fr, e, e1, e0, missing)
+	m.Reference = reference(X, terms, e, e1, e0, t)
 	if err := ctx.Err(); err != nil {
 		return nil, nil, nil, err
 	}
@@ -237,113 +241,149 @@ func fitOutcomes(ctx context.Context, fr *Frame, X Design, t []int8, terms []str
 	return om, nil
 }
 
-func diagnostics(fr *Frame, e []float64, t []int8, n1 int, missing map[string]int) Diagnostics {
-	n := len(e)
-	d := Diagnostics{
-		RowsRead:      fr.RowsRead,
-		SampleRows:    n,
-		Sampled:       fr.Sampled,
-		NTreated:      n1,
-		NControl:      n - n1,
-		AUC:           AUC(e, t),
-		MissingCounts: missing,
-	}
-	if fr.Sampled {
-		d.Seed = fr.Seed
-	}
-	e1 := make([]float64, 0, n1)
-	e0 := make([]float64, 0, n-n1)
-	var below, above int
+// sortArms returns the ascending propensities of the treated and of the
+// control rows, sorted concurrently; the diagnostics and the reference read
+// every order statistic of e from these two.
+func sortArms(e []float64, t []int8, n1 int) (e1, e0 []float64) {
+	e1 = make([]float64, 0, n1)
+	e0 = make([]float64, 0, len(e)-n1)
 	for i, v := range e {
 		if t[i] == 1 {
 			e1 = append(e1, v)
 		} else {
 			e0 = append(e0, v)
 		}
-		if v < 0.01 {
-			below++
-		}
-		if v > 0.99 {
-			above++
-		}
 	}
-	d.PropensityQuantiles = ArmQuantiles{Treated: Quantiles(e1, propensityQs[:]), Control: Quantiles(e0, propensityQs[:])}
+	var wg sync.WaitGroup
+	wg.Go(func() { slices.Sort(e1) })
+	slices.Sort(e0)
+	wg.Wait()
+	return e1, e0
+}
+
+func diagnostics(fr *Frame, e, e1, e0 []float64, missing map[string]int) Diagnostics {
+	n := len(e)
+	d := Diagnostics{
+		RowsRead:      fr.RowsRead,
+		SampleRows:    n,
+		Sampled:       fr.Sampled,
+		NTreated:      len(e1),
+		NControl:      len(e0),
+		AUC:           aucSorted(e1, e0),
+		MissingCounts: missing,
+	}
+	if fr.Sampled {
+		d.Seed = fr.Seed
+	}
+	// Shares outside [0.01, 0.99] by binary search in the sorted arms.
+	below := sort.SearchFloat64s(e1, 0.01) + sort.SearchFloat64s(e0, 0.01)
+	above := len(e1) - upperBound(e1, 0.99) + len(e0) - upperBound(e0, 0.99)
+	d.PropensityQuantiles = ArmQuantiles{Treated: QuantilesSorted(e1, propensityQs[:]), Control: QuantilesSorted(e0, propensityQs[:])}
 	d.ShareBelow001 = float64(below) / float64(n)
 	d.ShareAbove099 = float64(above) / float64(n)
 	return d
 }
 
+// upperBound is the number of values of ascending s that are ≤ v.
+func upperBound(s []float64, v float64) int {
+	return sort.Search(len(s), func(i int) bool { return s[i] > v })
+}
+
 // reference summarizes every term and the propensities on the fit sample.
-func reference(X Design, terms []string, e []float64, t []int8, n1 int) Reference {
-	r := Reference{ShareTreated: float64(n1) / float64(len(e))}
+// Terms are summarized on GOMAXPROCS goroutines, each writing only its
+// terms' slots, so the result does not depend on scheduling.
+func reference(X Design, terms []string, e, e1, e0 []float64, t []int8) Reference {
+	r := Reference{ShareTreated: float64(len(e1)) / float64(len(e))}
 	r.Terms = make([]TermReference, len(X.Cols))
-	var sorted []float64 // one scratch copy for every term's deciles
-	for j, col := range X.Cols {
-		sorted = append(sorted[:0], col...)
-		slices.Sort(sorted)
-		tr := TermReference{Term: terms[j+1], Edges: decilesSorted(sorted)}
-		tr.Mean, tr.SD = meanSD(col, t, -1)
-		tr.MeanTreated, tr.SDTreated = meanSD(col, t, 1)
-		tr.MeanControl, tr.SDControl = meanSD(col, t, 0)
-		r.Terms[j] = tr
+	var next atomic.Int64
+	var wg sync.WaitGroup
+	for range min(runtime.GOMAXPROCS(0), len(X.Cols)) {
+		wg.Go(func() {
+			var scratch []float64 // one copy per goroutine for every term's deciles
+			for {
+				j := int(next.Add(1) - 1)
+				if j >= len(X.Cols) {
+					return
+				}
+				col := X.Cols[j]
+				tr := TermReference{Term: terms[j+1]}
+				if ones, ok := binaryOnes(col); ok {
+					tr.Edges = decilesBinary(len(col), ones)
+				} else {
+					if scratch == nil {
+						scratch = make([]float64, len(col))
+					}
+					s := scratch[:len(col)]
+					copy(s, col)
+					tr.Edges = decilesSelect(s)
+				}
+				ms := meanSD3(col, t)
+				tr.Mean, tr.SD = ms[0].mean, ms[0].sd
+				tr.MeanTreated, tr.SDTreated = ms[1].mean, ms[1].sd
+				tr.MeanControl, tr.SDControl = ms[2].mean, ms[2].sd
+				r.Terms[j] = tr
+			}
+		})
 	}
+	wg.Wait()
 	r.PropensityEdges = make([]float64, 51)
 	for k := range r.PropensityEdges {
 		r.PropensityEdges[k] = float64(k) / 50
 	}
-	r.PropensityCounts = Histogram(e, r.PropensityEdges)
-	r.PropensityDeciles = DecileEdges(e)
-	if r.PropensityDeciles == nil {
-		r.PropensityDeciles = []float64{}
-	}
+	r.PropensityCounts = histogramSorted(r.PropensityEdges, e1, e0)
+	n := len(e1) + len(e0)
+	at := mergedAt(e1, e0, ranksFor(n, decileQs[:]))
+	r.PropensityDeciles = decilesBy(n, func(k int) float64 { return at[k] })
 	// Bins (−∞, d_1], (d_1, d_2], …, (d_k, ∞): bin = number of deciles
 	// below e, the rule the drift accumulator applies at score time.
 	r.DecileCounts = make([]float64, len(r.PropensityDeciles)+1)
-	for _, v := range e {
-		r.DecileCounts[sort.SearchFloat64s(r.PropensityDeciles, v)]++
+	prev := 0
+	for b, d := range r.PropensityDeciles {
+		atMost := upperBound(e1, d) + upperBound(e0, d)
+		r.DecileCounts[b] = float64(atMost - prev)
+		prev = atMost
 	}
+	r.DecileCounts[len(r.PropensityDeciles)] = float64(n - prev)
 	return r
 }
 
-// decilesSorted is DecileEdges of a sorted column without NaN, sparing a
-// copy per term.
-func decilesSorted(s []float64) []float64 {
-	out := make([]float64, 0, 9)
-	if len(s) == 0 {
-		return out
+type meanSDPair struct{ mean, sd float64 }
+
+// meanSD3 is the mean and the SD with n−1 (0 below two rows) of x over all
+// rows, the treated and the control, two passes for accuracy. The three
+// sums share the passes but each runs over its rows in row order, as three
+// separate passes would, so the results are the same to the bit.
+func meanSD3(x []float64, t []int8) [3]meanSDPair {
+	var n, sum [3]float64
+	for i, v := range x {
+		a := 2 - int(t[i]) // 1 treated, 2 control
+		sum[0] += v
+		n[0]++
+		sum[a] += v
+		n[a]++
 	}
-	for k := 1; k <= 9; k++ {
-		v := quantileSorted(s, float64(k)/10)
-		if len(out) == 0 || v > out[len(out)-1] {
-			out = append(out, v)
+	var mean, ss [3]float64
+	for k := range 3 {
+		if n[k] > 0 {
+			mean[k] = sum[k] / n[k]
+		}
+	}
+	for i, v := range x {
+		a := 2 - int(t[i])
+		d := v - mean[0]
+		ss[0] += d * d
+		d = v - mean[a]
+		ss[a] += d * d
+	}
+	var out [3]meanSDPair
+	for k := range 3 {
+		if n[k] == 0 {
+			continue
+		}
+		out[k].mean = mean[k]
+		if n[k] > 1 {
+			out[k].sd = math.Sqrt(ss[k] / (n[k] - 1))
 		}
 	}
 	return out
-}
-
-// meanSD is the mean and the SD with n−1 (0 below two rows) of x over the
-// rows with t == arm, or all rows when arm < 0; two passes for accuracy.
-func meanSD(x []float64, t []int8, arm int8) (mean, sd float64) {
-	var n, sum float64
-	for i, v := range x {
-		if arm < 0 || t[i] == arm {
-			sum += v
-			n++
-		}
-	}
-	if n == 0 {
-		return 0, 0
-	}
-	mean = sum / n
-	var ss float64
-	for i, v := range x {
-		if arm < 0 || t[i] == arm {
-			d := v - mean
-			ss += d * d
-		}
-	}
-	if n > 1 {
-		sd = math.Sqrt(ss / (n - 1))
-	}
-	return mean, sd
 }

@@ -1,0 +1,233 @@
+package fit
+
+import (
+	"math"
+	"slices"
+	"sort"
+)
+
+// Exact order statistics without a full sort. A full sort of a 1M-row term
+// costs O(n log n) only to read 18 of its order statistics; selection reads
+// them in O(n).
+
+// selectRanks reorders x so that x[r] holds the value a full ascending sort
+// would put at r, for every r in ranks (ascending, each in [0, len(x))).
+// It is Hoare's FIND generalized to several targets (Hoare 1961, "Algorithm
+// 65: Find", CACM 4(7)): partition around a pivot, then recurse only into
+// the sides that still hold a wanted rank, carrying those ranks along. The
+// partition is three-way (Dijkstra's Dutch national flag), so runs of equal
+// values end the recursion; past a depth of 2·log2(n) a side is sorted
+// instead, Musser's introselect bound (Musser 1997, "Introspective sorting
+// and selection algorithms", Software: Practice and Experience 27(8)), so
+// the worst case stays O(n log n). x must not hold NaN.
+func selectRanks(x []float64, ranks []int) {
+	if len(ranks) == 0 || len(x) < 2 {
+		return
+	}
+	depth := 2 * bitsLen(len(x))
+	selectIn(x, 0, ranks, depth)
+}
+
+func bitsLen(n int) int {
+	b := 0
+	for ; n > 0; n >>= 1 {
+		b++
+	}
+	return b
+}
+
+// selectIn works on x = the full slice's [off, off+len(x)), ranks relative
+// to the full slice and all inside it.
+func selectIn(x []float64, off int, ranks []int, depth int) {
+	for len(ranks) > 0 {
+		n := len(x)
+		if n <= 16 || depth == 0 {
+			slices.Sort(x)
+			return
+		}
+		depth--
+		p := pivotOf(x)
+		lt, gt := partition3(x, p)
+		// x[:lt] < p, x[lt:gt] == p, x[gt:] > p.
+		i := sort.SearchInts(ranks, off+lt)
+		j := sort.SearchInts(ranks, off+gt)
+		left, right := ranks[:i], ranks[j:]
+		switch {
+		case len(left) == 0:
+			x, off, ranks = x[gt:], off+gt, right
+		case len(right) == 0:
+			x, ranks = x[:lt], left
+		default:
+			// Recurse into the smaller side, loop on the larger.
+			if lt < n-gt {
+				selectIn(x[:lt], off, left, depth)
+				x, off, ranks = x[gt:], off+gt, right
+			} else {
+				selectIn(x[gt:], off+gt, right, depth)
+				x, ranks = x[:lt], left
+			}
+		}
+	}
+}
+
+// pivotOf is Tukey's ninther (median of three medians of three), robust
+// against sorted and organ-pipe inputs.
+func pivotOf(x []float64) float64 {
+	n := len(x)
+	s := n / 8
+	m := n / 2
+	return med3(med3(x[0], x[s], x[2*s]), med3(x[m-s], x[m], x[m+s]), med3(x[n-1-2*s], x[n-1-s], x[n-1]))
+}
+
+func med3(a, b, c float64) float64 {
+	if a > b {
+		a, b = b, a
+	}
+	if b > c {
+		b = c
+	}
+	if a > b {
+		return a
+	}
+	return b
+}
+
+// partition3 rearranges x into < p, == p, > p and returns the bounds of
+// the middle block.
+func partition3(x []float64, p float64) (lt, gt int) {
+	i := 0
+	gt = len(x)
+	for i < gt {
+		v := x[i]
+		switch {
+		case v < p:
+			x[lt], x[i] = v, x[lt]
+			lt++
+			i++
+		case v > p:
+			gt--
+			x[gt], x[i] = v, x[gt]
+		default:
+			i++
+		}
+	}
+	return lt, gt
+}
+
+// type7At locates the definition-7 quantile q of n sorted values: it is
+// s[n−1] when last, else interpolated between s[i] and s[i+1] by t (see
+// quantileSorted).
+func type7At(n int, q float64) (i int, t float64, last bool) {
+	q = math.Min(math.Max(q, 0), 1)
+	h := float64(n-1) * q
+	lo := math.Floor(h)
+	i = int(lo)
+	if i >= n-1 {
+		return n - 1, 0, true
+	}
+	return i, h - lo, false
+}
+
+// interp7 interpolates the way numpy does (from the upper neighbour when
+// the fraction is ≥ 1/2) so results agree to the last bit in most cases.
+func interp7(a, b, t float64) float64 {
+	if t >= 0.5 {
+		return b - (b-a)*(1-t)
+	}
+	return a + (b-a)*t
+}
+
+// ranksFor lists, ascending and without repeats, the order statistics the
+// definition-7 quantiles qs of n values read.
+func ranksFor(n int, qs []float64) []int {
+	r := make([]int, 0, 2*len(qs))
+	for _, q := range qs {
+		i, _, last := type7At(n, q)
+		r = append(r, i)
+		if !last {
+			r = append(r, i+1)
+		}
+	}
+	slices.Sort(r)
+	return slices.Compact(r)
+}
+
+// quantileBy is definition 7 with the order statistics read through at,
+// which must agree with a sorted copy at the ranks ranksFor lists.
+func quantileBy(n int, q float64, at func(int) float64) float64 {
+	i, t, last := type7At(n, q)
+	if last {
+		return at(n - 1)
+	}
+	return interp7(at(i), at(i+1), t)
+}
+
+// decileQs are the q of the interior deciles.
+var decileQs = [...]float64{0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, 0.9}
+
+// decilesBy is DecileEdges with the order statistics read through at.
+func decilesBy(n int, at func(int) float64) []float64 {
+	out := make([]float64, 0, 9)
+	if n == 0 {
+		return out
+	}
+	for k := 1; k <= 9; k++ {
+		v := quantileBy(n, float64(k)/10, at)
+		if len(out) == 0 || v > out[len(out)-1] {
+			out = append(out, v)
+		}
+	}
+	return out
+}
+
+// decilesSelect is DecileEdges of x without NaN, reordering x.
+func decilesSelect(x []float64) []float64 {
+	selectRanks(x, ranksFor(len(x), decileQs[:]))
+	return decilesBy(len(x), func(r int) float64 { return x[r] })
+}
+
+// binaryOnes reports whether x holds only +0 and 1, and how many ones.
+func binaryOnes(x []float64) (ones int, ok bool) {
+	for _, v := range x {
+		switch {
+		case v == 1:
+			ones++
+		case math.Float64bits(v) != 0:
+			return 0, false
+		}
+	}
+	return ones, true
+}
+
+// decilesBinary is DecileEdges of n values of which the last ones (in
+// sorted order) are 1 and the rest 0: the order statistics are known.
+func decilesBinary(n, ones int) []float64 {
+	return decilesBy(n, func(r int) float64 {
+		if r < n-ones {
+			return 0
+		}
+		return 1
+	})
+}
+
+// mergedAt reads the order statistics at ranks (ascending) of the union of
+// two ascending slices, in one merge walk.
+func mergedAt(a, b []float64, ranks []int) map[int]float64 {
+	out := make(map[int]float64, len(ranks))
+	i, j := 0, 0
+	for k := 0; len(ranks) > 0 && k < len(a)+len(b); k++ {
+		var v float64
+		if j >= len(b) || (i < len(a) && a[i] <= b[j]) {
+			v = a[i]
+			i++
+		} else {
+			v = b[j]
+			j++
+		}
+		if k == ranks[0] {
+			out[k] = v
+			ranks = ranks[1:]
+		}
+	}
+	return out
+}
