@@ -6,6 +6,7 @@ import (
 	"io/fs"
 	"os"
 	"path/filepath"
+	"slices"
 	"strings"
 	"testing"
 
@@ -280,4 +281,34 @@ func TestUnusualButValidInputs(t *testing.T) {
 	ind := filepath.Join(e.tmp, "indicator.json")
 	mustHeft(t, "fit", "-q", "-o", ind, "--treatment", "t", "--covariates", "x1,x2", "--missing", "indicator", "--ridge", "1", bad("covariate_nan.parquet"))
 	mustHeft(t, "score", "-q", "--model", ind, "--report-only", "--report", filepath.Join(e.out, "n.json"), bad("covariate_null.parquet"))
+}
+
+// A directory output that meets a corrupt page in its second file fails with
+// the page's location, keeps the first file whole and writes no _SUCCESS.
+func TestDirectoryOutputStopsAtDamage(t *testing.T) {
+	e := newBadEnv(t)
+	in := filepath.Join(e.tmp, "in")
+	os.Mkdir(in, 0o755)
+	for name, from := range map[string]string{"a.parquet": "good.parquet", "b.parquet": "corrupt_page.parquet"} {
+		b, err := os.ReadFile(bad(from))
+		if err != nil {
+			t.Fatal(err)
+		}
+		os.WriteFile(filepath.Join(in, name), b, 0o644)
+	}
+	out := filepath.Join(e.tmp, "scored")
+	r := heft(t, "score", "-q", "--model", e.model, "-o", out+"/", in)
+	line := errorLine(t, r.stderr)
+	if r.code != ExitInput || !strings.Contains(line, "b.parquet: row group 1") {
+		t.Fatalf("exit %d: %s", r.code, line)
+	}
+	visible, hidden := dirFiles(t, out)
+	if !slices.Equal(visible, []string{"a.parquet"}) || len(hidden) > 0 {
+		t.Fatalf("output directory holds %v %v, want a.parquet alone", visible, hidden)
+	}
+	one := filepath.Join(e.tmp, "a.parquet")
+	mustHeft(t, "score", "-q", "--model", e.model, "-o", one, filepath.Join(in, "a.parquet"))
+	if sha(t, one) != sha(t, filepath.Join(out, "a.parquet")) {
+		t.Error("the file committed before the failure is not whole")
+	}
 }
