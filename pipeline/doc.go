@@ -35,8 +35,14 @@
 // ParquetSinkOptions.Workers goroutines at once, one column per goroutine,
 // and the AtomicFile's write-behind goroutine does the system calls, so
 // writing uses more than one core while the engine's reader decodes the
-// next batches. Nothing in the file depends on timing: no timestamps are
-// written and column chunks are laid out in schema order.
+// next batches. Before a row group is closed the last page of every column
+// is compressed the same way, in parallel. String columns are dictionary
+// encoded through pqarrow's dictionary-array path (indices against the
+// levels of the row group's first batch), which skips the per-value hash
+// lookup pqarrow does for plain strings; numeric columns are dictionary
+// encoded when their first batch repeats values. Nothing in the file
+// depends on timing or on the worker count: no timestamps are written and
+// column chunks are laid out in schema order.
 //
 // Errors name their place: *Error carries file, row group, row and column,
 // and wraps the cause for errors.Is and errors.As.
