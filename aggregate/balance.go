@@ -71,9 +71,12 @@ func bin(edges []float64, x float64) int {
 // interior deciles are at most nine.
 const maxDeciles = 9
 
-// deciles are up to nine sorted edges padded with +Inf, which no finite
+// decileBins is the bins of a term with maxDeciles edges.
+const decileBins = maxDeciles + 1
+
+// deciles are up to nine sorted edges padded to 15 with +Inf, which no
 // value exceeds, so that bin9 can count without a loop or branches.
-type deciles [maxDeciles]float64
+type deciles [16]float64
 
 func padDeciles(edges []float64) (d deciles, ok bool) {
 	if len(edges) > maxDeciles {
@@ -93,11 +96,14 @@ func b2i(b bool) int {
 	return 0
 }
 
-// bin9 is bin for padded edges: the same count written out, which compiles
-// to branch-free code (random data would mispredict the scan's exit).
+// bin9 is bin for padded edges: a binary search over 15 sorted entries in
+// four steps, written without branches (random data would mispredict a
+// scan's exit or a search's branches).
 func bin9(e *deciles, x float64) int {
-	return b2i(e[0] < x) + b2i(e[1] < x) + b2i(e[2] < x) + b2i(e[3] < x) + b2i(e[4] < x) +
-		b2i(e[5] < x) + b2i(e[6] < x) + b2i(e[7] < x) + b2i(e[8] < x)
+	k := b2i(e[7] < x) << 3
+	k += b2i(e[(k+3)&15] < x) << 2 // &15: k+3 ≤ 11, and no bounds check
+	k += b2i(e[(k+1)&15] < x) << 1
+	return k + b2i(e[k&15] < x)
 }
 
 // add folds one batch in. x[j] is term j+1 per row; rows and w as for
@@ -111,16 +117,28 @@ func (b *balance) add(x [][]float64, rows *arms, w []float64, hist []float64, bt
 			b.addBinary(j, bt.ones[j], rows, arm, w, sw)
 			continue
 		}
-		armMoments(col, rows, w, &u, &wt)
-		for a := 0; a < 2; a++ {
-			b.U[a][j].Merge(u[a])
-			b.W[a][j].Merge(wt[a])
-		}
 		if b.edges == nil {
+			armMoments(col, rows, w, &u, &wt)
+			b.mergeMoments(j, &u, &wt)
 			continue
 		}
 		e := b.edges[j]
 		pad, fast := padDeciles(e)
+		if fast && len(hist) >= 2*decileBins {
+			// both arms' histograms binned in the moments' second pass
+			h := [2][]float64{hist[:decileBins], hist[decileBins : 2*decileBins]}
+			clear(hist[:2*decileBins])
+			armMomentsHist(col, rows, w, &u, &wt, &pad, &h)
+			b.mergeMoments(j, &u, &wt)
+			for a := range h {
+				for k, v := range h[a][:len(e)+1] {
+					b.H[a][j][k].Add(v)
+				}
+			}
+			continue
+		}
+		armMoments(col, rows, w, &u, &wt)
+		b.mergeMoments(j, &u, &wt)
 		for a, idx := range rows {
 			h := hist[:len(e)+1]
 			clear(h)
@@ -137,6 +155,13 @@ func (b *balance) add(x [][]float64, rows *arms, w []float64, hist []float64, bt
 				b.H[a][j][k].Add(v)
 			}
 		}
+	}
+}
+
+func (b *balance) mergeMoments(j int, u, wt *[2]Moments) {
+	for a := 0; a < 2; a++ {
+		b.U[a][j].Merge(u[a])
+		b.W[a][j].Merge(wt[a])
 	}
 }
 

@@ -90,7 +90,7 @@ func TestBinaryBalance(t *testing.T) {
 					sw[a] += w[i]
 				}
 			}
-			hist := make([]float64, 16)
+			hist := make([]float64, 32)
 			bt.find(xs, hi-lo)
 			for _, is := range bt.is {
 				nBinary += b2i(is)

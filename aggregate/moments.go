@@ -77,6 +77,12 @@ func (r *arms) split(arm []int8) {
 // most of the rounding left in the first pass's mean. w[i] is 0 for rows
 // without a usable weight.
 func armMoments(x []float64, rows *arms, w []float64, u, wt *[2]Moments) {
+	armMomentsHist(x, rows, w, u, wt, nil, nil)
+}
+
+// armMomentsHist is armMoments that also adds each row's weight into
+// h[a][bin9(e, x)] when e is not nil: the second pass reads the rows anyway.
+func armMomentsHist(x []float64, rows *arms, w []float64, u, wt *[2]Moments, e *deciles, h *[2][]float64) {
 	for a, idx := range rows {
 		var sx, sw, swx float64
 		for _, i := range idx {
@@ -96,14 +102,29 @@ func armMoments(x []float64, rows *arms, w []float64, u, wt *[2]Moments) {
 			meanw = swx / sw
 		}
 		var sd, sd2, swd, swd2 float64
-		for _, i := range idx {
-			d := x[i] - mean
-			sd += d
-			sd2 += d * d
-			dw := x[i] - meanw
-			wd := w[i] * dw
-			swd += wd
-			swd2 += wd * dw
+		if e != nil {
+			ha := h[a]
+			for _, i := range idx {
+				xi, wi := x[i], w[i]
+				d := xi - mean
+				sd += d
+				sd2 += d * d
+				dw := xi - meanw
+				wd := wi * dw
+				swd += wd
+				swd2 += wd * dw
+				ha[bin9(e, xi)] += wi
+			}
+		} else {
+			for _, i := range idx {
+				d := x[i] - mean
+				sd += d
+				sd2 += d * d
+				dw := x[i] - meanw
+				wd := w[i] * dw
+				swd += wd
+				swd2 += wd * dw
+			}
 		}
 		u[a] = Moments{W: n, Mean: mean + sd/n, M2: max(sd2-sd*sd/n, 0)}
 		if sw > 0 {

@@ -214,7 +214,8 @@ func newShared(m *fit.Model, p score.Policy, set settings) (*shared, error) {
 	if len(set.By) > 0 {
 		sh.seg = &segmenter{by: set.By, max: set.MaxSegments}
 	}
-	sh.pool.New = func() any { return &scratch{hist: make([]float64, sh.histSize)} }
+	// room for both arms' decile histograms, which balance bins together
+	sh.pool.New = func() any { return &scratch{hist: make([]float64, max(sh.histSize, 2*decileBins))} }
 	return sh, nil
 }
 
