@@ -3,7 +3,11 @@ package score
 import (
 	"fmt"
 	"math"
+	"runtime"
+	"slices"
 	"sort"
+	"sync"
+	"sync/atomic"
 
 	"github.com/heft-project/heft/fit"
 )
@@ -100,7 +104,154 @@ func QuantileGrid() []float64 {
 // whose weight is not finite (e exactly 0 or 1) are left out, because an
 // infinite quantile cannot be stored in JSON nor serve as a cap. A key whose
 // estimand has no usable row is omitted. e and t have the same length.
+//
+// Within an arm each weight is a monotone function of e on [0, 1] (1/e and
+// (1−e)/e and 1−e fall, 1/(1−e), e/(1−e) and e rise, 1 is constant), and
+// stays monotone in floating point because IEEE 754 subtraction, division
+// and multiplication by the stabilizing share are correctly rounded, and
+// rounding is monotone. So e is sorted once per arm and each key's pooled
+// sorted weights come from an O(n) merge of the two arms, walking an arm
+// backwards where its weight falls; the values are those of sorting the
+// pooled weights, to the bit. Keys are computed on GOMAXPROCS goroutines,
+// each into its own slots. Inputs outside that case (e outside [+0, 1] or
+// NaN, a share outside [0, 1]) take the direct route of sorting every key.
 func WeightQuantiles(e []float64, t []int8, shareTreated float64) map[string][]fit.Quantile {
+	e1, e0, ok := sortedArms(e, t)
+	if !ok || !(shareTreated >= 0 && shareTreated <= 1) {
+		return weightQuantilesPooled(e, t, shareTreated)
+	}
+	qs := QuantileGrid()
+	type job struct {
+		k    kind
+		stab bool
+		key  string
+	}
+	jobs := make([]job, 0, 2*len(Estimands))
+	for _, est := range Estimands {
+		k, _ := estimandKind(est)
+		jobs = append(jobs, job{k, false, est}, job{k, true, StabilizedKey(est)})
+	}
+	res := make([][]fit.Quantile, len(jobs))
+	var next atomic.Int64
+	var wg sync.WaitGroup
+	for range min(runtime.GOMAXPROCS(0), len(jobs)) {
+		wg.Go(func() {
+			buf := make([]float64, len(e1)+len(e0))
+			for {
+				i := int(next.Add(1) - 1)
+				if i >= len(jobs) {
+					return
+				}
+				s1, s0 := 1.0, 1.0
+				if jobs[i].stab {
+					s1, s0 = armShare(1, shareTreated), armShare(0, shareTreated)
+				}
+				w := pooledWeights(buf, jobs[i].k, jobs[i].stab, e1, e0, s1, s0)
+				res[i] = fit.QuantilesSorted(w, qs)
+			}
+		})
+	}
+	wg.Wait()
+	out := make(map[string][]fit.Quantile, len(jobs))
+	for i, j := range jobs {
+		if res[i] != nil {
+			out[j.key] = res[i]
+		}
+	}
+	return out
+}
+
+// sortedArms returns the ascending e of the treated and of the control
+// rows, sorted concurrently; ok is false when some e of either arm is NaN,
+// −0 or outside [0, 1], where the weights need not be monotone.
+func sortedArms(e []float64, t []int8) (e1, e0 []float64, ok bool) {
+	n1 := 0
+	for i, v := range e {
+		if t[i] != 0 && t[i] != 1 {
+			continue
+		}
+		if !(v >= 0 && v <= 1) || math.Signbit(v) {
+			return nil, nil, false
+		}
+		n1 += int(t[i])
+	}
+	e1 = make([]float64, 0, n1)
+	e0 = make([]float64, 0, len(e)-n1)
+	for i, v := range e {
+		switch t[i] {
+		case 1:
+			e1 = append(e1, v)
+		case 0:
+			e0 = append(e0, v)
+		}
+	}
+	var wg sync.WaitGroup
+	wg.Go(func() { slices.Sort(e1) })
+	slices.Sort(e0)
+	wg.Wait()
+	return e1, e0, true
+}
+
+// falls reports whether the weight of arm t decreases in e.
+func falls(k kind, t int8) bool {
+	if t == 1 {
+		return k == kindATE || k == kindATC || k == kindOverlap
+	}
+	return false
+}
+
+// pooledWeights writes into dst (len(e1)+len(e0) long) the finite weights
+// of both arms, ascending, and returns them; stab multiplies arm t's
+// weights by s1 or s0. The treated weights are laid out ascending from
+// dst[len(e0)] and merged with the control weights, made on the fly, from
+// dst[0]: the write position i+j never passes the unread treated weight at
+// len(e0)+i because j ≤ len(e0).
+func pooledWeights(dst []float64, k kind, stab bool, e1, e0 []float64, s1, s0 float64) []float64 {
+	off := len(e0)
+	m1 := 0
+	for idx := range e1 {
+		if falls(k, 1) {
+			idx = len(e1) - 1 - idx
+		}
+		v := weightOf(k, 1, e1[idx])
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			continue
+		}
+		if stab {
+			v *= s1
+		}
+		dst[off+m1] = v
+		m1++
+	}
+	a := dst[off : off+m1]
+	out := dst[:0]
+	i := 0
+	for idx := range e0 {
+		if falls(k, 0) {
+			idx = len(e0) - 1 - idx
+		}
+		v := weightOf(k, 0, e0[idx])
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			continue
+		}
+		if stab {
+			v *= s0
+		}
+		for i < len(a) && a[i] <= v {
+			out = append(out, a[i])
+			i++
+		}
+		out = append(out, v)
+	}
+	for ; i < len(a); i++ {
+		out = append(out, a[i])
+	}
+	return out
+}
+
+// weightQuantilesPooled is WeightQuantiles by computing and sorting every
+// key's pooled weights, for inputs where the weights need not be monotone.
+func weightQuantilesPooled(e []float64, t []int8, shareTreated float64) map[string][]fit.Quantile {
 	qs := QuantileGrid()
 	out := make(map[string][]fit.Quantile, 2*len(Estimands))
 	w := make([]float64, 0, len(e))
