@@ -204,6 +204,7 @@ func TestBadInputs(t *testing.T) {
 		{"merge: different models", merge("state_ate.json", "state_other_model.json"), ExitModel, []string{"state_other_model.json", "different models"}},
 		{"merge: different estimand", merge("state_ate.json", "state_att.json"), ExitModel, []string{"state_att.json", "different weighting policies", "att"}},
 		{"merge: stabilized and not", merge("state_ate.json", "state_stabilized.json"), ExitModel, []string{"state_stabilized.json", "different weighting policies", "stabilize"}},
+		{"merge: the same state twice", merge("state_ate.json", "state_ate.json"), ExitUsage, []string{"state_ate.json", "same state", "twice"}},
 		{"merge: truncated state", merge("state_truncated.json"), ExitModel, []string{"state_truncated.json", "state file"}},
 	}
 	for _, c := range cases {

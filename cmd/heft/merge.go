@@ -1,8 +1,10 @@
 package main
 
 import (
+	"crypto/sha256"
 	"errors"
 	"fmt"
+	"os"
 
 	"github.com/spf13/cobra"
 
@@ -24,10 +26,28 @@ States from different models or weight policies are refused.`,
 				return usagef(errors.New("nothing to write: give -o and/or --report"))
 			}
 			var total *aggregate.State
+			seen := map[[32]byte]string{}
+			inputOf := map[string]string{}
 			for _, p := range args {
-				s, err := aggregate.ReadState(p)
+				data, err := os.ReadFile(p)
 				if err != nil {
 					return modelError{err}
+				}
+				// The same state twice would count its rows twice.
+				sum := sha256.Sum256(data)
+				if q, ok := seen[sum]; ok {
+					return usagef(fmt.Errorf("%s and %s are the same state; merging it twice would count its rows twice", q, p))
+				}
+				seen[sum] = p
+				s, err := aggregate.UnmarshalState(p, data)
+				if err != nil {
+					return modelError{err}
+				}
+				for _, in := range s.Inputs {
+					if q, ok := inputOf[in]; ok {
+						env.Logf("heft merge: %s and %s both list input %s; if it is the same table, its rows are counted twice", q, p, in)
+					}
+					inputOf[in] = p
 				}
 				if total == nil {
 					total = s
