@@ -463,3 +463,45 @@ func TestStrDict(t *testing.T) {
 	d.reset()
 	mem.AssertSize(t, 0)
 }
+
+// TestParquetSinkDiskFull runs the engine into a Parquet file whose disk
+// fills up: the error names the output, and neither the target nor a
+// temporary file is left.
+func TestParquetSinkDiskFull(t *testing.T) {
+	dir := t.TempDir()
+	target := filepath.Join(dir, "scored.parquet")
+	mem := memory.NewCheckedAllocator(memory.NewGoAllocator())
+	sc := newSliceSource(mem).schema
+	c, err := NewParquetSink(target, sc, ParquetSinkOptions{Alloc: mem, RowGroupRows: 1000})
+	if err != nil {
+		t.Fatal(err)
+	}
+	c.(*parquetSink).atomic.out = failWriter{}
+	sizes := make([]int, 300)
+	for i := range sizes {
+		sizes[i] = 997
+	}
+	src := newSliceSource(mem, sizes...)
+	_, err = Run(context.Background(), src, c, func() (Transform, error) { return nilCopy{}, nil }, nil, EngineOptions{Workers: 2})
+	src.Close()
+	if err == nil {
+		err = c.Close()
+	}
+	c.Abort()
+	var pe *Error
+	if !errors.Is(err, errDiskFull) || !errors.As(err, &pe) || pe.File != target {
+		t.Fatalf("error %v, want a *Error naming %s that wraps the disk error", err, target)
+	}
+	if got := listDir(t, dir); len(got) != 0 {
+		t.Errorf("directory holds %v", got)
+	}
+	mem.AssertSize(t, 0)
+}
+
+// nilCopy passes each batch through.
+type nilCopy struct{}
+
+func (nilCopy) Apply(_ context.Context, rec arrow.RecordBatch, _ Location) (arrow.RecordBatch, any, error) {
+	rec.Retain()
+	return rec, nil, nil
+}
