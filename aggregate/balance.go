@@ -74,9 +74,9 @@ const maxDeciles = 9
 // decileBins is the bins of a term with maxDeciles edges.
 const decileBins = maxDeciles + 1
 
-// deciles are up to nine sorted edges padded to 15 with +Inf, which no
+// deciles are up to nine sorted edges padded with +Inf, which no finite
 // value exceeds, so that bin9 can count without a loop or branches.
-type deciles [16]float64
+type deciles [maxDeciles]float64
 
 func padDeciles(edges []float64) (d deciles, ok bool) {
 	if len(edges) > maxDeciles {
@@ -96,14 +96,11 @@ func b2i(b bool) int {
 	return 0
 }
 
-// bin9 is bin for padded edges: a binary search over 15 sorted entries in
-// four steps, written without branches (random data would mispredict a
-// scan's exit or a search's branches).
+// bin9 is bin for padded edges: the same count written out, which compiles
+// to branch-free code (random data would mispredict the scan's exit).
 func bin9(e *deciles, x float64) int {
-	k := b2i(e[7] < x) << 3
-	k += b2i(e[(k+3)&15] < x) << 2 // &15: k+3 ≤ 11, and no bounds check
-	k += b2i(e[(k+1)&15] < x) << 1
-	return k + b2i(e[k&15] < x)
+	return b2i(e[0] < x) + b2i(e[1] < x) + b2i(e[2] < x) + b2i(e[3] < x) + b2i(e[4] < x) +
+		b2i(e[5] < x) + b2i(e[6] < x) + b2i(e[7] < x) + b2i(e[8] < x)
 }
 
 // add folds one batch in. x[j] is term j+1 per row; rows and w as for
