@@ -478,10 +478,12 @@ func dictEncoding(e parquet.Encoding) bool {
 	return e == parquet.Encodings.PlainDict || e == parquet.Encodings.RLEDict
 }
 
-// strDictLimit bounds the levels strDict keeps for one row group; past it a
-// column is left to the library (it falls back to plain encoding at 1 MiB
-// of dictionary anyway).
-const strDictLimit = 1 << 16
+// strDictLimit bounds the levels strDict keeps for one row group. Past it a
+// column is left to the library: a column with that many levels is more
+// like names than a category, later batches would keep bringing new ones
+// (each such batch costs a wasted pass), and pqarrow falls back to plain
+// encoding at 1 MiB of dictionary anyway.
+const strDictLimit = 4096
 
 // strDict turns a string column into an Arrow dictionary array whose
 // dictionary stays the same for a whole row group, so that pqarrow
