@@ -462,6 +462,23 @@ func TestStrDict(t *testing.T) {
 		x.Release()
 	}
 	d.reset()
+
+	// A column of names rather than levels is left to pqarrow for the row group.
+	names := make([]string, strDictLimit+1)
+	for i := range names {
+		names[i] = fmt.Sprintf("n%d", i)
+	}
+	many := strs(names...)
+	if got := d.encode(mem, many); got != nil || !d.off {
+		t.Error("more than strDictLimit levels were kept")
+	}
+	few := strs("a")
+	if got := d.encode(mem, few); got != nil {
+		t.Error("a column given up on came back within the row group")
+	}
+	few.Release()
+	many.Release()
+	d.reset()
 	mem.AssertSize(t, 0)
 }
 
