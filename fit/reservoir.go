@@ -22,6 +22,11 @@ type SampleOptions struct {
 	Outcome     string   // optional
 	SampleRows  int      // 0 = keep every row
 	Seed        uint64
+	// ExpectedRows, when known (from Parquet footers), is the number of
+	// input rows; the frame's columns are allocated once at the size the
+	// sample will have instead of growing by appends. 0 = unknown. A wrong
+	// value costs memory or regrowth, never a wrong result.
+	ExpectedRows int64
 }
 
 // ReadSample reads src to the end and returns the fit sample: every row
@@ -169,6 +174,7 @@ func (r *reader) setup(schema *arrow.Schema, file string) error {
 	}
 	if first {
 		r.fr.Columns = make([]FrameColumn, len(r.opt.Covariates))
+		defer r.presize()
 	}
 	if err := resolve(&r.fr.Treatment, r.opt.Treatment, "treatment", KindCategorical); err != nil {
 		var pe *pipeline.Error
@@ -195,6 +201,34 @@ func (r *reader) setup(schema *arrow.Schema, file string) error {
 		}
 	}
 	return nil
+}
+
+// presize gives the frame's columns the capacity of the expected sample:
+// every expected row, or SampleRows when sampling fewer.
+func (r *reader) presize() {
+	n := r.opt.ExpectedRows
+	if r.opt.SampleRows > 0 {
+		n = min(n, int64(r.opt.SampleRows))
+	}
+	if n <= 0 || n > math.MaxInt32 {
+		return
+	}
+	size := func(c *FrameColumn) {
+		if c.Kind == KindNumeric {
+			c.Num = make([]float64, 0, n)
+		} else {
+			c.Codes = make([]int32, 0, n)
+		}
+	}
+	size(&r.fr.Treatment)
+	if r.fr.Outcome != nil {
+		size(r.fr.Outcome)
+	}
+	for k := range r.fr.Columns {
+		size(&r.fr.Columns[k])
+	}
+	r.fr.originIdx = make([]int32, 0, n)
+	r.fr.originRow = make([]int64, 0, n)
 }
 
 func (r *reader) batch(rec arrow.RecordBatch, loc pipeline.Location) error {
