@@ -347,6 +347,9 @@ func (a *Effects) addWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch, bt 
 	V, B := sc.v, sc.rows
 	for lo := 0; lo < n; lo += B {
 		hi := min(lo+B, n)
+		// The block's usable rows listed per arm, then visited arm by arm,
+		// so that the branches on the arm below are taken the same way in
+		// a run and predicted.
 		var na [2]int
 		for i := lo; i < hi; i++ {
 			r := i - lo
@@ -357,114 +360,120 @@ func (a *Effects) addWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch, bt 
 				sc.pos[r] = -1
 				continue
 			}
-			a.Rows++
-			e, y, wr := s.E[i], b.Y[i], s.W[i]
-			var m0, m1 float64
-			if aug {
-				m0, m1 = s.Mu0[i], s.Mu1[i]
-			}
-
-			treated := b.T[i] == 1
-			tt := float64(b.T[i])
-			u := 1 - tt
-			sg := tt - u // +1 treated, −1 control
-			ie, ic := 1/e, 1/(1-e)
-			// The row's arm weight and its derivative in e, per estimand.
-			var wATE, dATE, wATT, dATT, wATC, dATC, wOv, dOv float64
-			if treated {
-				wATE, dATE = ie, -ie*ie
-				wATT, dATT = 1, 0
-				wATC, dATC = (1-e)*ie, -ie*ie
-				wOv, dOv = 1-e, -1
-			} else {
-				wATE, dATE = ic, ic*ic
-				wATT, dATT = e*ic, ic*ic
-				wATC, dATC = 1, 0
-				wOv, dOv = e, 1
-			}
-
-			// Horvitz–Thompson: ψ = sign·Y·w.
-			V[cIPWATE*B+r], V[(cIPWATE+1)*B+r] = sg*y*wATE, 1
-			V[cIPWATT*B+r], V[(cIPWATT+1)*B+r] = sg*y*wATT, tt
-			V[cIPWATC*B+r], V[(cIPWATC+1)*B+r] = sg*y*wATC, u
-
-			// Hájek, with the written weight for the run's estimand: its
-			// derivative is scaled by stabilization and zeroed by truncation.
-			var wRun, dRun float64
-			switch {
-			case runATE:
-				wRun, dRun = wATE, dATE
-			case runATT:
-				wRun, dRun = wATT, dATT
-			case runATC:
-				wRun, dRun = wATC, dATC
-			case runOv:
-				wRun, dRun = wOv, dOv
-			}
-			if (trunc && wr >= pol.Cap) || wRun == 0 {
-				dRun = 0
-			} else {
-				dRun *= wr / wRun
-			}
-			hajekRow(V, B, r, cHajATE, pick(runATE, wr, wATE), tt, u, y)
-			hajekRow(V, B, r, cHajATT, pick(runATT, wr, wATT), tt, u, y)
-			hajekRow(V, B, r, cHajATC, pick(runATC, wr, wATC), tt, u, y)
-			hajekRow(V, B, r, cHajOver, pick(runOv, wr, wOv), tt, u, y)
-
-			var r1, r0, h, dh, d float64
-			if aug {
-				r1, r0 = y-m1, y-m0
-				V[cAugATE*B+r] = m1 - m0 + tt*r1*ie - u*r0*ic
-				V[(cAugATE+1)*B+r] = 1
-				V[cAugATT*B+r], V[(cAugATT+1)*B+r] = sg*r0*wATT, tt
-				V[cAugATC*B+r], V[(cAugATC+1)*B+r] = sg*r1*wATC, u
-				h, dh, d = e*(1-e), 1-2*e, m1-m0
-				o := cAugOver
-				V[o*B+r] = h * d
-				V[(o+1)*B+r] = h
-				V[(o+2)*B+r] = tt * (1 - e) * r1
-				V[(o+3)*B+r] = tt * (1 - e)
-				V[(o+4)*B+r] = u * e * r0
-				V[(o+5)*B+r] = u * e
-			}
-
-			if !grad {
-				continue
-			}
-			ge := e * (1 - e)
-			if clip && (e <= clipLo || e >= clipHi) {
-				ge = 0
-			}
-			g1, g0 := 1.0, 1.0
-			if logit {
-				g1, g0 = m1*(1-m1), m0*(1-m0)
-			}
-			arm := b2i(treated)
+			arm := b.T[i] & 1
 			k := na[arm]
 			na[arm]++
 			sc.pos[r], sc.at[arm][k] = int32(k), int32(i)
-			P := sc.p[arm][k:]
-			// the series of gradSeries, for the row's arm
-			if treated {
-				P[sE0*B], P[sE1*B] = ge*(y*(ie*ie)), ge*(ie*ie)
+		}
+		a.Rows += int64(na[0] + na[1])
+		for _, arm := range [2]int8{1, 0} {
+			for k, i32 := range sc.at[arm][:na[arm]] {
+				i := int(i32)
+				r := i - lo
+				e, y, wr := s.E[i], b.Y[i], s.W[i]
+				var m0, m1 float64
 				if aug {
-					P[sE4*B], P[sE7*B] = ge*(r1*(ie*ie)), ge*r1
-					P[sF0*B], P[sF2*B] = g1*((1-e)*ie), g1*(1-e)
-					P[sG0*B], P[sG2*B] = g0, 0
+					m0, m1 = s.Mu0[i], s.Mu1[i]
 				}
-			} else {
-				P[sE0*B], P[sE1*B] = ge*(y*(ic*ic)), ge*(ic*ic)
+
+				treated := arm == 1
+				tt := float64(arm)
+				u := 1 - tt
+				sg := tt - u // +1 treated, −1 control
+				ie, ic := 1/e, 1/(1-e)
+				// The row's arm weight and its derivative in e, per estimand.
+				var wATE, dATE, wATT, dATT, wATC, dATC, wOv, dOv float64
+				if treated {
+					wATE, dATE = ie, -ie*ie
+					wATT, dATT = 1, 0
+					wATC, dATC = (1-e)*ie, -ie*ie
+					wOv, dOv = 1-e, -1
+				} else {
+					wATE, dATE = ic, ic*ic
+					wATT, dATT = e*ic, ic*ic
+					wATC, dATC = 1, 0
+					wOv, dOv = e, 1
+				}
+
+				// Horvitz–Thompson: ψ = sign·Y·w.
+				V[cIPWATE*B+r], V[(cIPWATE+1)*B+r] = sg*y*wATE, 1
+				V[cIPWATT*B+r], V[(cIPWATT+1)*B+r] = sg*y*wATT, tt
+				V[cIPWATC*B+r], V[(cIPWATC+1)*B+r] = sg*y*wATC, u
+
+				// Hájek, with the written weight for the run's estimand: its
+				// derivative is scaled by stabilization and zeroed by truncation.
+				var wRun, dRun float64
+				switch {
+				case runATE:
+					wRun, dRun = wATE, dATE
+				case runATT:
+					wRun, dRun = wATT, dATT
+				case runATC:
+					wRun, dRun = wATC, dATC
+				case runOv:
+					wRun, dRun = wOv, dOv
+				}
+				if (trunc && wr >= pol.Cap) || wRun == 0 {
+					dRun = 0
+				} else {
+					dRun *= wr / wRun
+				}
+				hajekRow(V, B, r, cHajATE, pick(runATE, wr, wATE), tt, u, y)
+				hajekRow(V, B, r, cHajATT, pick(runATT, wr, wATT), tt, u, y)
+				hajekRow(V, B, r, cHajATC, pick(runATC, wr, wATC), tt, u, y)
+				hajekRow(V, B, r, cHajOver, pick(runOv, wr, wOv), tt, u, y)
+
+				var r1, r0, h, dh, d float64
 				if aug {
-					P[sE4*B], P[sE7*B] = ge*(r0*(ic*ic)), ge*r0
-					P[sF0*B], P[sF2*B] = g1, 0
-					P[sG0*B], P[sG2*B] = g0*(e*ic), g0*e
+					r1, r0 = y-m1, y-m0
+					V[cAugATE*B+r] = m1 - m0 + tt*r1*ie - u*r0*ic
+					V[(cAugATE+1)*B+r] = 1
+					V[cAugATT*B+r], V[(cAugATT+1)*B+r] = sg*r0*wATT, tt
+					V[cAugATC*B+r], V[(cAugATC+1)*B+r] = sg*r1*wATC, u
+					h, dh, d = e*(1-e), 1-2*e, m1-m0
+					o := cAugOver
+					V[o*B+r] = h * d
+					V[(o+1)*B+r] = h
+					V[(o+2)*B+r] = tt * (1 - e) * r1
+					V[(o+3)*B+r] = tt * (1 - e)
+					V[(o+4)*B+r] = u * e * r0
+					V[(o+5)*B+r] = u * e
 				}
-			}
-			P[sE2*B], P[sE3*B] = ge*y, ge
-			P[sR0*B], P[sR1*B] = ge*(dRun*y), ge*dRun
-			if aug {
-				P[sE5*B], P[sE6*B] = ge*(dh*d), ge*dh
-				P[sF1*B], P[sG1*B] = g1*h, g0*h
+
+				if !grad {
+					continue
+				}
+				ge := e * (1 - e)
+				if clip && (e <= clipLo || e >= clipHi) {
+					ge = 0
+				}
+				g1, g0 := 1.0, 1.0
+				if logit {
+					g1, g0 = m1*(1-m1), m0*(1-m0)
+				}
+				P := sc.p[arm][k:]
+				// the series of gradSeries, for the row's arm
+				if treated {
+					P[sE0*B], P[sE1*B] = ge*(y*(ie*ie)), ge*(ie*ie)
+					if aug {
+						P[sE4*B], P[sE7*B] = ge*(r1*(ie*ie)), ge*r1
+						P[sF0*B], P[sF2*B] = g1*((1-e)*ie), g1*(1-e)
+						P[sG0*B], P[sG2*B] = g0, 0
+					}
+				} else {
+					P[sE0*B], P[sE1*B] = ge*(y*(ic*ic)), ge*(ic*ic)
+					if aug {
+						P[sE4*B], P[sE7*B] = ge*(r0*(ic*ic)), ge*r0
+						P[sF0*B], P[sF2*B] = g1, 0
+						P[sG0*B], P[sG2*B] = g0*(e*ic), g0*e
+					}
+				}
+				P[sE2*B], P[sE3*B] = ge*y, ge
+				P[sR0*B], P[sR1*B] = ge*(dRun*y), ge*dRun
+				if aug {
+					P[sE5*B], P[sE6*B] = ge*(dh*d), ge*dh
+					P[sF1*B], P[sG1*B] = g1*h, g0*h
+				}
 			}
 		}
 		a.fold(V, B, hi-lo, aug)
