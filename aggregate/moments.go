@@ -104,6 +104,8 @@ func armMomentsHist(x []float64, rows *arms, w []float64, u, wt *[2]Moments, e *
 		var sd, sd2, swd, swd2 float64
 		if e != nil {
 			ha := h[a]
+			// bin9 written out: the compiler does not inline it here
+			e0, e1, e2, e3, e4, e5, e6, e7, e8 := e[0], e[1], e[2], e[3], e[4], e[5], e[6], e[7], e[8]
 			for _, i := range idx {
 				xi, wi := x[i], w[i]
 				d := xi - mean
@@ -113,7 +115,9 @@ func armMomentsHist(x []float64, rows *arms, w []float64, u, wt *[2]Moments, e *
 				wd := wi * dw
 				swd += wd
 				swd2 += wd * dw
-				ha[bin9(e, xi)] += wi
+				k := b2i(e0 < xi) + b2i(e1 < xi) + b2i(e2 < xi) + b2i(e3 < xi) + b2i(e4 < xi) +
+					b2i(e5 < xi) + b2i(e6 < xi) + b2i(e7 < xi) + b2i(e8 < xi)
+				ha[k] += wi
 			}
 		} else {
 			for _, i := range idx {
