@@ -5,6 +5,7 @@ import (
 	"encoding/base64"
 	"errors"
 	"fmt"
+	"hash/maphash"
 	"io"
 	"math"
 	"runtime"
@@ -14,6 +15,7 @@ import (
 
 	"github.com/apache/arrow-go/v18/arrow"
 	"github.com/apache/arrow-go/v18/arrow/array"
+	"github.com/apache/arrow-go/v18/arrow/bitutil"
 	"github.com/apache/arrow-go/v18/arrow/flight"
 	"github.com/apache/arrow-go/v18/arrow/memory"
 	"github.com/apache/arrow-go/v18/parquet"
@@ -494,9 +496,11 @@ const strDictLimit = 4096
 // which pqarrow adds to the same column dictionary (the Parquet bytes are
 // the same either way; only the time differs).
 type strDict struct {
-	index map[string]int32
-	dict  arrow.Array // levels in index order
-	off   bool        // too many levels: leave this row group to the library
+	seed   maphash.Seed
+	slots  []int32  // open addressing over levels: index+1, 0 for empty
+	levels []string // in index order
+	dict   arrow.Array
+	off    bool // too many levels: leave this row group to the library
 }
 
 func (d *strDict) reset() {
@@ -506,6 +510,34 @@ func (d *strDict) reset() {
 	*d = strDict{}
 }
 
+// lookup returns v's index, or -1 and the empty slot where v would go.
+func (d *strDict) lookup(v string) (idx int32, slot int) {
+	mask := len(d.slots) - 1
+	for i := int(maphash.String(d.seed, v)) & mask; ; i = (i + 1) & mask {
+		k := d.slots[i]
+		if k == 0 {
+			return -1, i
+		}
+		if d.levels[k-1] == v {
+			return k - 1, i
+		}
+	}
+}
+
+func (d *strDict) insert(v string, slot int) int32 {
+	d.levels = append(d.levels, strings.Clone(v)) // v points into a batch its owner will reuse
+	k := int32(len(d.levels))
+	d.slots[slot] = k
+	if 2*len(d.levels) > len(d.slots) { // keep the table at most half full
+		d.slots = make([]int32, 2*len(d.slots))
+		for j, l := range d.levels {
+			_, s := d.lookup(l)
+			d.slots[s] = int32(j + 1)
+		}
+	}
+	return k - 1
+}
+
 // encode returns str as a dictionary array, or nil to write it as it is.
 func (d *strDict) encode(mem memory.Allocator, str *array.String) arrow.Array {
 	if d.off {
@@ -513,43 +545,53 @@ func (d *strDict) encode(mem memory.Allocator, str *array.String) arrow.Array {
 	}
 	first := d.dict == nil
 	if first {
-		d.index = make(map[string]int32)
+		d.seed = maphash.MakeSeed()
+		d.slots = make([]int32, 64)
+		d.levels = d.levels[:0]
 	}
-	var levels []string
-	b := array.NewInt32Builder(mem)
-	defer b.Release()
-	b.Reserve(str.Len())
-	for i := 0; i < str.Len(); i++ {
-		if str.IsNull(i) {
-			b.UnsafeAppendBoolToBitmap(false)
+	n, nulls := str.Len(), str.NullN()
+	buf := memory.NewResizableBuffer(mem)
+	defer buf.Release()
+	buf.Resize(n * arrow.Int32SizeBytes)
+	idx := arrow.Int32Traits.CastFromBytes(buf.Bytes())
+	for i := range n {
+		if nulls > 0 && str.IsNull(i) {
+			idx[i] = 0
 			continue
 		}
 		v := str.Value(i)
-		k, ok := d.index[v]
-		if !ok {
+		k, slot := d.lookup(v)
+		if k < 0 {
 			if !first {
 				return nil
 			}
-			if len(levels) == strDictLimit {
+			if len(d.levels) == strDictLimit {
 				d.off = true
 				return nil
 			}
-			k = int32(len(levels))
-			v = strings.Clone(v) // str's buffer goes back to its owner
-			d.index[v] = k
-			levels = append(levels, v)
+			k = d.insert(v, slot)
 		}
-		b.UnsafeAppend(k)
+		idx[i] = k
 	}
 	if first {
 		sb := array.NewStringBuilder(mem)
-		sb.AppendValues(levels, nil)
+		sb.AppendValues(d.levels, nil)
 		d.dict = sb.NewArray()
 		sb.Release()
 	}
-	idx := b.NewArray()
-	defer idx.Release()
-	return array.NewDictionaryArray(&arrow.DictionaryType{IndexType: arrow.PrimitiveTypes.Int32, ValueType: arrow.BinaryTypes.String}, idx, d.dict)
+	bufs := []*memory.Buffer{nil, buf}
+	if nulls > 0 {
+		valid := memory.NewResizableBuffer(mem)
+		defer valid.Release()
+		valid.Resize(int(bitutil.BytesForBits(int64(n))))
+		bitutil.CopyBitmap(str.NullBitmapBytes(), str.Data().Offset(), n, valid.Bytes(), 0)
+		bufs[0] = valid
+	}
+	data := array.NewData(arrow.PrimitiveTypes.Int32, n, bufs, nil, nulls, 0)
+	defer data.Release()
+	indices := array.MakeFromData(data)
+	defer indices.Release()
+	return array.NewDictionaryArray(&arrow.DictionaryType{IndexType: arrow.PrimitiveTypes.Int32, ValueType: arrow.BinaryTypes.String}, indices, d.dict)
 }
 
 // defLevels returns the definition levels of a flat optional column: 1 for
