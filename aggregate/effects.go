@@ -135,39 +135,29 @@ type Effects struct {
 // point over at most blockRows rows) added into the compensated sums.
 const blockRows = 128
 
-// EffectsScratch is the per-block working memory of Add, about 70 KB at
-// full size. It holds no results, so one scratch per goroutine can serve any
-// number of Effects (e.g. one per segment) through AddWith.
+// EffectsScratch is the per-block working memory of Add, about 70 KB; its
+// arrays have the block's size fixed, so indexing them needs no checks. It
+// holds no results, so one scratch per goroutine can serve any number of
+// Effects (e.g. one per segment) through AddWith.
 type EffectsScratch struct {
-	rows int          // rows per block, at most blockRows
-	v    []float64    // nComp × rows, component-major
-	p    [2][]float64 // per arm, nSeries × rows, series-major (see gradSeries)
-	at   [2][]int32   // per arm, the batch rows of the block's series
-	pos  []int32      // per block row: its index among its arm's, −1 if unused
-	xg   []float64    // a term's values gathered for one arm's rows
-	ser  [2][]float64 // per arm, per term, the block's series sums
-	cur  []int        // per 0/1 term, the next of its ones to visit
-	bin  binaryTerms  // AddWith's own, when the caller has none
+	rows int                             // blockRows once allocated
+	v    *[nComp][blockRows]float64      // per component, the block's rows
+	p    *[2][nSeries][blockRows]float64 // per arm and series (see gradSeries), the arm's rows
+	at   [2][blockRows]int32             // per arm, the batch rows of the block's series
+	pos  [blockRows]int32                // per block row: its index among its arm's, −1 if unused
+	xg   [blockRows]float64              // a term's values gathered for one arm's rows
+	ser  [2][]float64                    // per arm, per term, the block's series sums
+	cur  []int                           // per 0/1 term, the next of its ones to visit
+	bin  binaryTerms                     // AddWith's own, when the caller has none
 }
 
-// NewEffectsScratch allocates a full-size scratch.
-func NewEffectsScratch() *EffectsScratch { return newScratch(blockRows) }
-
-func newScratch(rows int) *EffectsScratch {
-	sc := &EffectsScratch{rows: rows, v: make([]float64, nComp*rows), pos: make([]int32, rows), xg: make([]float64, rows)}
-	for a := range sc.p {
-		sc.p[a] = make([]float64, nSeries*rows)
-		sc.at[a] = make([]int32, rows)
-	}
-	return sc
+// NewEffectsScratch allocates a scratch.
+func NewEffectsScratch() *EffectsScratch {
+	return &EffectsScratch{rows: blockRows, v: new([nComp][blockRows]float64), p: new([2][nSeries][blockRows]float64)}
 }
 
-// ok reports whether sc has the shape newScratch gives.
-func (sc *EffectsScratch) ok() bool {
-	r := sc.rows
-	return r > 0 && len(sc.v) == nComp*r && len(sc.p[0]) == nSeries*r && len(sc.p[1]) == nSeries*r &&
-		len(sc.at[0]) == r && len(sc.at[1]) == r && len(sc.pos) == r && len(sc.xg) == r
-}
+// ok reports whether sc was made by NewEffectsScratch.
+func (sc *EffectsScratch) ok() bool { return sc.rows == blockRows && sc.v != nil && sc.p != nil }
 
 // Components: each estimator's per-row values v, at a fixed offset.
 const (
@@ -276,14 +266,8 @@ func (a *Effects) Add(b *fit.Batch, s *score.Scores) {
 	if a == nil || b == nil {
 		return
 	}
-	// An accumulator's own scratch grows with its batches (powers of two up
-	// to blockRows), so many small ones, one per segment, stay small.
-	if n := b.N; a.own == nil || (a.own.rows < n && a.own.rows < blockRows) {
-		rows := 8
-		for rows < n && rows < blockRows {
-			rows *= 2
-		}
-		a.own = newScratch(rows)
+	if a.own == nil {
+		a.own = NewEffectsScratch()
 	}
 	a.AddWith(b, s, a.own)
 }
@@ -344,7 +328,7 @@ func (a *Effects) addWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch, bt 
 		g.init(sc, bt, run, p, ns, nser)
 	}
 	runATE, runATT, runATC, runOv := run == score.ATE, run == score.ATT, run == score.ATC, run == score.Overlap
-	V, B := sc.v, sc.rows
+	V, B := sc.v, blockRows
 	for lo := 0; lo < n; lo += B {
 		hi := min(lo+B, n)
 		// The block's usable rows listed per arm, then visited arm by arm,
@@ -352,24 +336,24 @@ func (a *Effects) addWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch, bt 
 		// a run and predicted.
 		var na [2]int
 		for i := lo; i < hi; i++ {
-			r := i - lo
+			r := (i - lo) & (blockRows - 1) // i − lo < blockRows: no bounds checks
 			if !a.usable(b, s, i, aug) {
 				for c := 0; c < last; c++ {
-					V[c*B+r] = 0
+					V[c][r] = 0
 				}
 				sc.pos[r] = -1
 				continue
 			}
 			arm := b.T[i] & 1
-			k := na[arm]
+			k := na[arm] & (blockRows - 1)
 			na[arm]++
 			sc.pos[r], sc.at[arm][k] = int32(k), int32(i)
 		}
 		a.Rows += int64(na[0] + na[1])
 		for _, arm := range [2]int8{1, 0} {
-			for k, i32 := range sc.at[arm][:na[arm]] {
+			for k, i32 := range sc.at[arm&1][:na[arm&1]] {
 				i := int(i32)
-				r := i - lo
+				r := (i - lo) & (blockRows - 1)
 				e, y, wr := s.E[i], b.Y[i], s.W[i]
 				var m0, m1 float64
 				if aug {
@@ -396,9 +380,9 @@ func (a *Effects) addWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch, bt 
 				}
 
 				// Horvitz–Thompson: ψ = sign·Y·w.
-				V[cIPWATE*B+r], V[(cIPWATE+1)*B+r] = sg*y*wATE, 1
-				V[cIPWATT*B+r], V[(cIPWATT+1)*B+r] = sg*y*wATT, tt
-				V[cIPWATC*B+r], V[(cIPWATC+1)*B+r] = sg*y*wATC, u
+				V[cIPWATE][r], V[cIPWATE+1][r] = sg*y*wATE, 1
+				V[cIPWATT][r], V[cIPWATT+1][r] = sg*y*wATT, tt
+				V[cIPWATC][r], V[cIPWATC+1][r] = sg*y*wATC, u
 
 				// Hájek, with the written weight for the run's estimand: its
 				// derivative is scaled by stabilization and zeroed by truncation.
@@ -418,26 +402,26 @@ func (a *Effects) addWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch, bt 
 				} else {
 					dRun *= wr / wRun
 				}
-				hajekRow(V, B, r, cHajATE, pick(runATE, wr, wATE), tt, u, y)
-				hajekRow(V, B, r, cHajATT, pick(runATT, wr, wATT), tt, u, y)
-				hajekRow(V, B, r, cHajATC, pick(runATC, wr, wATC), tt, u, y)
-				hajekRow(V, B, r, cHajOver, pick(runOv, wr, wOv), tt, u, y)
+				hajekRow(V, r, cHajATE, pick(runATE, wr, wATE), tt, u, y)
+				hajekRow(V, r, cHajATT, pick(runATT, wr, wATT), tt, u, y)
+				hajekRow(V, r, cHajATC, pick(runATC, wr, wATC), tt, u, y)
+				hajekRow(V, r, cHajOver, pick(runOv, wr, wOv), tt, u, y)
 
 				var r1, r0, h, dh, d float64
 				if aug {
 					r1, r0 = y-m1, y-m0
-					V[cAugATE*B+r] = m1 - m0 + tt*r1*ie - u*r0*ic
-					V[(cAugATE+1)*B+r] = 1
-					V[cAugATT*B+r], V[(cAugATT+1)*B+r] = sg*r0*wATT, tt
-					V[cAugATC*B+r], V[(cAugATC+1)*B+r] = sg*r1*wATC, u
+					V[cAugATE][r] = m1 - m0 + tt*r1*ie - u*r0*ic
+					V[cAugATE+1][r] = 1
+					V[cAugATT][r], V[cAugATT+1][r] = sg*r0*wATT, tt
+					V[cAugATC][r], V[cAugATC+1][r] = sg*r1*wATC, u
 					h, dh, d = e*(1-e), 1-2*e, m1-m0
 					o := cAugOver
-					V[o*B+r] = h * d
-					V[(o+1)*B+r] = h
-					V[(o+2)*B+r] = tt * (1 - e) * r1
-					V[(o+3)*B+r] = tt * (1 - e)
-					V[(o+4)*B+r] = u * e * r0
-					V[(o+5)*B+r] = u * e
+					V[o][r] = h * d
+					V[o+1][r] = h
+					V[o+2][r] = tt * (1 - e) * r1
+					V[o+3][r] = tt * (1 - e)
+					V[o+4][r] = u * e * r0
+					V[o+5][r] = u * e
 				}
 
 				if !grad {
@@ -451,32 +435,32 @@ func (a *Effects) addWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch, bt 
 				if logit {
 					g1, g0 = m1*(1-m1), m0*(1-m0)
 				}
-				P := sc.p[arm][k:]
+				P := &sc.p[arm&1]
 				// the series of gradSeries, for the row's arm
 				if treated {
-					P[sE0*B], P[sE1*B] = ge*(y*(ie*ie)), ge*(ie*ie)
+					P[sE0][k], P[sE1][k] = ge*(y*(ie*ie)), ge*(ie*ie)
 					if aug {
-						P[sE4*B], P[sE7*B] = ge*(r1*(ie*ie)), ge*r1
-						P[sF0*B], P[sF2*B] = g1*((1-e)*ie), g1*(1-e)
-						P[sG0*B], P[sG2*B] = g0, 0
+						P[sE4][k], P[sE7][k] = ge*(r1*(ie*ie)), ge*r1
+						P[sF0][k], P[sF2][k] = g1*((1-e)*ie), g1*(1-e)
+						P[sG0][k], P[sG2][k] = g0, 0
 					}
 				} else {
-					P[sE0*B], P[sE1*B] = ge*(y*(ic*ic)), ge*(ic*ic)
+					P[sE0][k], P[sE1][k] = ge*(y*(ic*ic)), ge*(ic*ic)
 					if aug {
-						P[sE4*B], P[sE7*B] = ge*(r0*(ic*ic)), ge*r0
-						P[sF0*B], P[sF2*B] = g1, 0
-						P[sG0*B], P[sG2*B] = g0*(e*ic), g0*e
+						P[sE4][k], P[sE7][k] = ge*(r0*(ic*ic)), ge*r0
+						P[sF0][k], P[sF2][k] = g1, 0
+						P[sG0][k], P[sG2][k] = g0*(e*ic), g0*e
 					}
 				}
-				P[sE2*B], P[sE3*B] = ge*y, ge
-				P[sR0*B], P[sR1*B] = ge*(dRun*y), ge*dRun
+				P[sE2][k], P[sE3][k] = ge*y, ge
+				P[sR0][k], P[sR1][k] = ge*(dRun*y), ge*dRun
 				if aug {
-					P[sE5*B], P[sE6*B] = ge*(dh*d), ge*dh
-					P[sF1*B], P[sG1*B] = g1*h, g0*h
+					P[sE5][k], P[sE6][k] = ge*(dh*d), ge*dh
+					P[sF1][k], P[sG1][k] = g1*h, g0*h
 				}
 			}
 		}
-		a.fold(V, B, hi-lo, aug)
+		a.fold(V, hi-lo, aug)
 		if grad {
 			g.block(a.Grad, b.X, b.T, lo, hi, na)
 		}
@@ -519,10 +503,10 @@ func (a *Effects) usable(b *fit.Batch, s *score.Scores, i int, aug bool) bool {
 	return ok
 }
 
-// fold adds one block of L rows, stored with stride B, into the sums and
+// fold adds one block of L rows into the sums and
 // cross sums: each a dot product over the block.
-func (a *Effects) fold(V []float64, B, L int, aug bool) {
-	col := func(c int) []float64 { return V[c*B : c*B+L] }
+func (a *Effects) fold(V *[nComp][blockRows]float64, L int, aug bool) {
+	col := func(c int) []float64 { return V[c][:L] }
 	k := 0
 	for _, blk := range effectBlocks {
 		if blk.augmented && !aug {
@@ -556,8 +540,8 @@ func armsApart(blk block, r, c int) bool {
 }
 
 // hajekRow sets one Hájek block's components wTY, wT, w(1−T)Y, w(1−T).
-func hajekRow(V []float64, B, r, off int, w, tt, u, y float64) {
-	V[off*B+r], V[(off+1)*B+r], V[(off+2)*B+r], V[(off+3)*B+r] = w*tt*y, w*tt, w*u*y, w*u
+func hajekRow(V *[nComp][blockRows]float64, r, off int, w, tt, u, y float64) {
+	V[off][r], V[off+1][r], V[off+2][r], V[off+3][r] = w*tt*y, w*tt, w*u*y, w*u
 }
 
 // nAugFree is the number of leading slots that do not need outcome models.

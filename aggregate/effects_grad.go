@@ -134,16 +134,16 @@ func (g *gradFold) init(sc *EffectsScratch, bt *binaryTerms, run string, p, ns, 
 // the scratch (na[a] rows of arm a), flushing them into grad every
 // flushBlocks blocks; the caller flushes the rest.
 func (g *gradFold) block(grad []Sum, X [][]float64, T []int8, lo, hi int, na [2]int) {
-	sc, B, nser := g.sc, g.sc.rows, g.nser
+	sc, nser := g.sc, g.nser
 	for a := 0; a < 2; a++ {
 		S := sc.ser[a]
 		n := na[a]
 		if n == 0 {
 			continue
 		}
-		P := sc.p[a]
+		P := &sc.p[a]
 		for k := 0; k < nser; k++ {
-			S[k] += floats.Sum(P[k*B : k*B+n])
+			S[k] += floats.Sum(P[k][:n])
 		}
 		at, xg := sc.at[a][:n], sc.xg[:n]
 		for j, x := range X {
@@ -155,7 +155,7 @@ func (g *gradFold) block(grad []Sum, X [][]float64, T []int8, lo, hi int, na [2]
 			}
 			Sj := S[(j+1)*nSeries:]
 			for k := 0; k < nser; k++ {
-				Sj[k] += floats.Dot(P[k*B:k*B+n], xg)
+				Sj[k] += floats.Dot(P[k][:n], xg)
 			}
 		}
 	}
@@ -167,34 +167,32 @@ func (g *gradFold) block(grad []Sum, X [][]float64, T []int8, lo, hi int, na [2]
 		var acc [2][nSeries]float64
 		for ; c < len(ones) && int(ones[c]) < hi; c++ {
 			i := ones[c]
-			r := int(sc.pos[int(i)-lo])
+			r := int(sc.pos[(int(i)-lo)&(blockRows-1)])
 			if r < 0 {
 				continue
 			}
+			r &= blockRows - 1 // no bounds checks
 			a := T[i] & 1
-			P := sc.p[a]
-			if r+(nSeries-1)*B >= len(P) {
-				continue // never: lets the compiler drop the bounds checks
-			}
+			P := &sc.p[a]
 			s := &acc[a]
 			// every series (with the outcome models off, the tail is stale
 			// and never used)
-			s[0] += P[r]
-			s[1] += P[r+B]
-			s[2] += P[r+2*B]
-			s[3] += P[r+3*B]
-			s[4] += P[r+4*B]
-			s[5] += P[r+5*B]
-			s[6] += P[r+6*B]
-			s[7] += P[r+7*B]
-			s[8] += P[r+8*B]
-			s[9] += P[r+9*B]
-			s[10] += P[r+10*B]
-			s[11] += P[r+11*B]
-			s[12] += P[r+12*B]
-			s[13] += P[r+13*B]
-			s[14] += P[r+14*B]
-			s[15] += P[r+15*B]
+			s[0] += P[0][r]
+			s[1] += P[1][r]
+			s[2] += P[2][r]
+			s[3] += P[3][r]
+			s[4] += P[4][r]
+			s[5] += P[5][r]
+			s[6] += P[6][r]
+			s[7] += P[7][r]
+			s[8] += P[8][r]
+			s[9] += P[9][r]
+			s[10] += P[10][r]
+			s[11] += P[11][r]
+			s[12] += P[12][r]
+			s[13] += P[13][r]
+			s[14] += P[14][r]
+			s[15] += P[15][r]
 		}
 		sc.cur[j] = c
 		for a := range acc {
