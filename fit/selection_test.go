@@ -254,3 +254,17 @@ func meanSDOne(x []float64, t []int8, arm int8) (mean, sd float64) {
 	}
 	return mean, sd
 }
+
+// BenchmarkDecilesSelect is one 1M-row term's decile edges.
+func BenchmarkDecilesSelect(b *testing.B) {
+	rng := rand.New(rand.NewPCG(1, 1))
+	x := make([]float64, 1_000_000)
+	for i := range x {
+		x[i] = rng.NormFloat64()
+	}
+	s := make([]float64, len(x))
+	for b.Loop() {
+		copy(s, x)
+		decilesSelect(s)
+	}
+}
