@@ -353,7 +353,56 @@ type meanSDPair struct{ mean, sd float64 }
 // rows, the treated and the control, two passes for accuracy. The three
 // sums share the passes but each runs over its rows in row order, as three
 // separate passes would, so the results are the same to the bit.
+//
+// The arm sums add v·[t = arm] without branching: for finite v a masked
+// term is ±0, and adding ±0 leaves a sum that started at +0 unchanged (such
+// a sum is never −0 under round-to-nearest). A non-finite v would turn a
+// masked term into NaN, which reaches the sum, so a non-finite result is
+// recomputed by meanSD3Direct.
 func meanSD3(x []float64, t []int8) [3]meanSDPair {
+	var sum, sum1, sum0, n1 float64
+	for i, v := range x {
+		m := float64(t[i])
+		sum += v
+		sum1 += v * m
+		sum0 += v * (1 - m)
+		n1 += m
+	}
+	n := [3]float64{float64(len(x)), n1, float64(len(x)) - n1}
+	var mean [3]float64
+	for k, s := range [3]float64{sum, sum1, sum0} {
+		if n[k] > 0 {
+			mean[k] = s / n[k]
+		}
+	}
+	var ss, ss1, ss0 float64
+	for i, v := range x {
+		m := float64(t[i])
+		d := v - mean[0]
+		ss += d * d
+		d = v - mean[1]
+		ss1 += d * d * m
+		d = v - mean[2]
+		ss0 += d * d * (1 - m)
+	}
+	var out [3]meanSDPair
+	for k, q := range [3]float64{ss, ss1, ss0} {
+		if n[k] == 0 {
+			continue
+		}
+		if math.IsNaN(mean[k]+q) || math.IsInf(mean[k]+q, 0) {
+			return meanSD3Direct(x, t)
+		}
+		out[k].mean = mean[k]
+		if n[k] > 1 {
+			out[k].sd = math.Sqrt(q / (n[k] - 1))
+		}
+	}
+	return out
+}
+
+// meanSD3Direct is meanSD3 adding each value only to its own arm's sums.
+func meanSD3Direct(x []float64, t []int8) [3]meanSDPair {
 	var n, sum [3]float64
 	for i, v := range x {
 		a := 2 - int(t[i]) // 1 treated, 2 control

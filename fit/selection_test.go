@@ -268,3 +268,46 @@ func BenchmarkDecilesSelect(b *testing.B) {
 		decilesSelect(s)
 	}
 }
+
+// TestMeanSD3 compares the branch-free arm sums with one arm at a time, to
+// the bit: negative values and −0 (masked terms are then −0), an arm with
+// one row or none, and infinite or huge values, which take the direct route.
+func TestMeanSD3(t *testing.T) {
+	rng := rand.New(rand.NewPCG(9, 10))
+	negZero := math.Copysign(0, -1)
+	cases := map[string]func(i int) float64{
+		"normal":   func(int) float64 { return 1e3 * rng.NormFloat64() },
+		"negzero":  func(i int) float64 { return [3]float64{negZero, -2.5, 0}[i%3] },
+		"allneg0":  func(int) float64 { return negZero },
+		"infinite": func(i int) float64 { return [4]float64{1, math.Inf(1), -3, 2}[i%4] },
+		"huge":     func(i int) float64 { return [2]float64{1e308, -1e308}[i%2] * (1 + float64(i%5)) / 5 },
+	}
+	for name, f := range cases {
+		for _, n := range []int{1, 2, 9, 500} {
+			for _, arms := range []string{"mixed", "treated", "control", "one treated"} {
+				x := make([]float64, n)
+				tr := make([]int8, n)
+				for i := range x {
+					x[i] = f(i)
+					switch arms {
+					case "mixed":
+						tr[i] = int8(rng.IntN(2))
+					case "treated":
+						tr[i] = 1
+					case "one treated":
+						if i == n/2 {
+							tr[i] = 1
+						}
+					}
+				}
+				got := meanSD3(x, tr)
+				for k, arm := range []int8{-1, 1, 0} {
+					m, sd := meanSDOne(x, tr, arm)
+					if math.Float64bits(got[k].mean) != math.Float64bits(m) || math.Float64bits(got[k].sd) != math.Float64bits(sd) {
+						t.Errorf("%s n=%d %s arm %d: %v, %v; one arm at a time %v, %v", name, n, arms, arm, got[k].mean, got[k].sd, m, sd)
+					}
+				}
+			}
+		}
+	}
+}
