@@ -245,6 +245,9 @@ func fitOutcomes(ctx context.Context, fr *Frame, X Design, t []int8, terms []str
 // control rows, sorted concurrently; the diagnostics and the reference read
 // every order statistic of e from these two.
 func sortArms(e []float64, t []int8, n1 int) (e1, e0 []float64) {
+	if e1, e0, ok := SortedArms(e, t); ok {
+		return e1, e0
+	}
 	e1 = make([]float64, 0, n1)
 	e0 = make([]float64, 0, len(e)-n1)
 	for i, v := range e {

@@ -311,3 +311,52 @@ func TestMeanSD3(t *testing.T) {
 		}
 	}
 }
+
+// TestSortedArms compares the radix-sorted arms with a comparison sort, to
+// the bit, on propensity-like values: ties, exact 0 and 1, subnormals and
+// values next to 1; and checks the refusals.
+func TestSortedArms(t *testing.T) {
+	rng := rand.New(rand.NewPCG(13, 14))
+	gen := []func() float64{
+		rng.Float64,
+		func() float64 { return float64(rng.IntN(5)) / 4 },
+		func() float64 {
+			return [5]float64{0, 1, 5e-324, math.Nextafter(1, 0), 1 / (1 + math.Exp(-30*rng.NormFloat64()))}[rng.IntN(5)]
+		},
+	}
+	for g, f := range gen {
+		for _, n := range []int{0, 1, 2, 3, 100, 5000} {
+			e := make([]float64, n)
+			tr := make([]int8, n)
+			var w1, w0 []float64
+			for i := range e {
+				e[i] = f()
+				tr[i] = int8(rng.IntN(3)) - 1
+				switch tr[i] {
+				case 1:
+					w1 = append(w1, e[i])
+				case 0:
+					w0 = append(w0, e[i])
+				}
+			}
+			slices.Sort(w1)
+			slices.Sort(w0)
+			e1, e0, ok := SortedArms(e, tr)
+			if !ok || !bitsEqual(e1, w1) || !bitsEqual(e0, w0) {
+				t.Errorf("generator %d n=%d: ok %v, arms differ from a comparison sort", g, n, ok)
+			}
+		}
+	}
+	for _, bad := range []float64{math.NaN(), math.Copysign(0, -1), -0.1, 1.5, math.Inf(1)} {
+		if _, _, ok := SortedArms([]float64{0.5, bad}, []int8{1, 0}); ok {
+			t.Errorf("%v accepted", bad)
+		}
+		if _, _, ok := SortedArms([]float64{0.5, bad}, []int8{1, -1}); !ok {
+			t.Errorf("%v refused on a row outside both arms", bad)
+		}
+	}
+}
+
+func bitsEqual(a, b []float64) bool {
+	return slices.EqualFunc(a, b, func(x, y float64) bool { return math.Float64bits(x) == math.Float64bits(y) })
+}

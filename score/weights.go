@@ -4,7 +4,6 @@ import (
 	"fmt"
 	"math"
 	"runtime"
-	"slices"
 	"sort"
 	"sync"
 	"sync/atomic"
@@ -115,8 +114,9 @@ func QuantileGrid() []float64 {
 // pooled weights, to the bit. Keys are computed on GOMAXPROCS goroutines,
 // each into its own slots. Inputs outside that case (e outside [+0, 1] or
 // NaN, a share outside [0, 1]) take the direct route of sorting every key.
+// The arms are sorted by fit.SortedArms.
 func WeightQuantiles(e []float64, t []int8, shareTreated float64) map[string][]fit.Quantile {
-	e1, e0, ok := sortedArms(e, t)
+	e1, e0, ok := fit.SortedArms(e, t)
 	if !ok || !(shareTreated >= 0 && shareTreated <= 1) {
 		return weightQuantilesPooled(e, t, shareTreated)
 	}
@@ -159,37 +159,6 @@ func WeightQuantiles(e []float64, t []int8, shareTreated float64) map[string][]f
 		}
 	}
 	return out
-}
-
-// sortedArms returns the ascending e of the treated and of the control
-// rows, sorted concurrently; ok is false when some e of either arm is NaN,
-// −0 or outside [0, 1], where the weights need not be monotone.
-func sortedArms(e []float64, t []int8) (e1, e0 []float64, ok bool) {
-	n1 := 0
-	for i, v := range e {
-		if t[i] != 0 && t[i] != 1 {
-			continue
-		}
-		if !(v >= 0 && v <= 1) || math.Signbit(v) {
-			return nil, nil, false
-		}
-		n1 += int(t[i])
-	}
-	e1 = make([]float64, 0, n1)
-	e0 = make([]float64, 0, len(e)-n1)
-	for i, v := range e {
-		switch t[i] {
-		case 1:
-			e1 = append(e1, v)
-		case 0:
-			e0 = append(e0, v)
-		}
-	}
-	var wg sync.WaitGroup
-	wg.Go(func() { slices.Sort(e1) })
-	slices.Sort(e0)
-	wg.Wait()
-	return e1, e0, true
 }
 
 // falls reports whether the weight of arm t decreases in e.
