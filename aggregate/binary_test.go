@@ -1,8 +1,10 @@
 package aggregate
 
 import (
+	"encoding/json"
 	"fmt"
 	"math"
+	"strings"
 	"testing"
 
 	"github.com/heft-project/heft/score"
@@ -186,5 +188,77 @@ func closeSums(t *testing.T, what string, got, want []Sum, stride int) {
 		if d := math.Abs(g - w); d > 1e-12*scale || math.IsNaN(g) != math.IsNaN(w) {
 			t.Errorf("%s[%d] = %v, want %v (scale %g)", what, c, g, w, scale)
 		}
+	}
+}
+
+// TestBinaryState: a State's report, whole run and segments, is the same
+// to 1e-12 with the sums over the ones of 0/1 terms as with the dense sums,
+// on the fixture with its 0/1 terms x3, cat=b and cat=c, for every estimand.
+func TestBinaryState(t *testing.T) {
+	fx := loadFixture(t)
+	for _, est := range score.Estimands {
+		var reports [2]any
+		for k, dense := range []bool{false, true} {
+			s, err := New(fx.config(est), fixtureSchema)
+			if err != nil {
+				t.Fatal(err)
+			}
+			s.sh.dense = dense
+			feed(t, s, fx.parts(t, est, []int{100, 333, 700}))
+			raw, err := json.Marshal(s.Report())
+			if err != nil {
+				t.Fatal(err)
+			}
+			if err := json.Unmarshal(raw, &reports[k]); err != nil {
+				t.Fatal(err)
+			}
+		}
+		n := closeJSON(t, est, reports[0], reports[1])
+		if n < 100 {
+			t.Fatalf("%s: only %d numbers compared", est, n)
+		}
+	}
+}
+
+// closeJSON compares decoded JSON values, numbers to 1e-12 relative (or
+// 1e-14 absolute, for figures that cancel to about 0), and counts them.
+func closeJSON(t *testing.T, path string, got, want any) int {
+	t.Helper()
+	switch w := want.(type) {
+	case map[string]any:
+		g, ok := got.(map[string]any)
+		if !ok || len(g) != len(w) {
+			t.Errorf("%s: %v, want %v", path, got, want)
+			return 0
+		}
+		n := 0
+		for k := range w {
+			n += closeJSON(t, path+"/"+k, g[k], w[k])
+		}
+		return n
+	case []any:
+		g, ok := got.([]any)
+		if !ok || len(g) != len(w) {
+			t.Errorf("%s: %v, want %v", path, got, want)
+			return 0
+		}
+		n := 0
+		for i := range w {
+			n += closeJSON(t, fmt.Sprintf("%s[%d]", path, i), g[i], w[i])
+		}
+		return n
+	case float64:
+		g, ok := got.(float64)
+		if !ok || math.Abs(g-w) > 1e-12*math.Max(math.Abs(g), math.Abs(w))+1e-14 {
+			if !strings.HasSuffix(path, "seconds") {
+				t.Errorf("%s: %v, want %v", path, got, want)
+			}
+		}
+		return 1
+	default:
+		if got != want {
+			t.Errorf("%s: %v, want %v", path, got, want)
+		}
+		return 0
 	}
 }

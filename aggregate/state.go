@@ -60,6 +60,9 @@ type shared struct {
 	seg      *segmenter // nil without By
 	histSize int
 	pool     sync.Pool // *scratch
+	// dense turns off the sums over the ones of 0/1 terms; tests compare
+	// the two.
+	dense bool
 }
 
 // scratch holds per-batch buffers, pooled so that the engine's one State
@@ -359,7 +362,11 @@ func checkBatch(sh *shared, b *fit.Batch, sc *score.Scores, bt *binaryTerms) err
 				Err: fmt.Errorf("aggregate: term has %d values for a batch of %d rows", len(col), n)}
 		}
 	}
-	bt.find(b.X, n)
+	if sh.dense {
+		bt.none(len(b.X))
+	} else {
+		bt.find(b.X, n)
+	}
 	for j, col := range b.X {
 		if bt.is[j] {
 			continue
@@ -429,7 +436,11 @@ func (s *State) addSegments(cols []arrow.Array, b *fit.Batch, sc *score.Scores, 
 	for l, g := range x.local {
 		gather(idx[off[l]:off[l+1]], b, sc, x.arm, x.w, &x.g)
 		x.g.rows.split(x.g.arm)
-		x.bin.find(x.g.b.X, x.g.b.N)
+		if sh.dense {
+			x.bin.none(len(x.g.b.X))
+		} else {
+			x.bin.find(x.g.b.X, x.g.b.N)
+		}
 		g.add(&x.g.b, &x.g.s, &x.g.rows, x.g.arm, x.g.w, x.hist, &x.bin, &x.eff)
 	}
 	return nil
