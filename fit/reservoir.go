@@ -247,10 +247,13 @@ func (r *reader) batch(rec arrow.RecordBatch, loc pipeline.Location) error {
 	tarr := rec.Column(r.fr.Treatment.col)
 	N := int64(r.opt.SampleRows)
 	kept := false
+	base := r.fr.n
+	appendAll := true // every row lands at the frame's end, in order
 	for i := range n {
 		if tarr.IsNull(i) {
 			r.slots[i] = -1
 			r.fr.NullTreatment++
+			appendAll = false
 			continue
 		}
 		k := r.seen
@@ -263,8 +266,12 @@ func (r *reader) batch(rec arrow.RecordBatch, loc pipeline.Location) error {
 				r.slots[i] = int32(j)
 			} else {
 				r.slots[i] = -1
+				appendAll = false
 				continue
 			}
+		}
+		if int(r.slots[i]) != base+i {
+			appendAll = false
 		}
 		kept = true
 	}
@@ -280,16 +287,24 @@ func (r *reader) batch(rec arrow.RecordBatch, loc pipeline.Location) error {
 			}
 			return nil
 		}
-		floatsOf(arr, r.num)
+		num := r.num
+		if appendAll {
+			// Convert straight into the column's end instead of through
+			// the scratch buffer and take.
+			at := len(fc.Num)
+			fc.Num = slices.Grow(fc.Num, n)[:at+n]
+			num = fc.Num[at:]
+		}
+		floatsOf(arr, num)
 		if fc.cls == classFloat {
-			for i, v := range r.num {
+			for i, v := range num {
 				if math.IsInf(v, 0) {
 					return &pipeline.Error{File: loc.File, RowGroup: loc.RowGroup, Row: loc.Row + int64(i), Column: fc.Name,
 						Err: fmt.Errorf("%s value is %v; infinite values cannot be used", role, v)}
 				}
 			}
 		}
-		if kept {
+		if kept && !appendAll {
 			fc.take(arr, r.slots, r.num)
 		}
 		return nil
