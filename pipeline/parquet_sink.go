@@ -468,12 +468,49 @@ func (s *parquetSink) writeColumn(w, i int, arr arrow.Array) (err error) {
 		def = s.defLevels(w, arr)
 	}
 	if str, ok := arr.(*array.String); ok && dictEncoding(cw.CurrentEncoder().Encoding()) {
-		if d := s.strDicts[i].encode(s.mem, str); d != nil {
-			defer d.Release()
-			arr = d
+		d := &s.strDicts[i]
+		direct := d.dict != nil && d.preserved(cw)
+		if idx := d.encode(s.mem, str); idx != nil {
+			defer idx.Release()
+			if direct {
+				return d.writeIndices(cw, idx, def)
+			}
+			da := array.NewDictionaryArray(&arrow.DictionaryType{IndexType: arrow.PrimitiveTypes.Int32, ValueType: arrow.BinaryTypes.String}, idx, d.dict)
+			defer da.Release()
+			arr = da
 		}
 	}
 	return pqarrow.WriteArrowToColumn(s.ctxs[w], cw, arr, def, nil, s.schema.Field(i).Nullable)
+}
+
+// preserved reports whether the column writer's dictionary is the one d
+// handed it with the row group's first batch, so that d's indices are the
+// column's.
+func (d *strDict) preserved(cw file.ColumnChunkWriter) bool {
+	enc, ok := cw.CurrentEncoder().(interface{ PreservedDictionary() arrow.Array })
+	if !ok {
+		return false
+	}
+	p := enc.PreservedDictionary()
+	return p != nil && p.Len() == len(d.levels)
+}
+
+// writeIndices writes a batch whose levels are all in the column's
+// dictionary: what pqarrow does for a dictionary array, without the unique
+// pass over the indices it makes for the page statistics when the
+// dictionary is not the same Go value as before (and it never is: each
+// Arrow dictionary array wraps its dictionary anew). Like pqarrow's own
+// same-dictionary case, min and max are taken over the whole dictionary.
+func (d *strDict) writeIndices(cw file.ColumnChunkWriter, idx arrow.Array, def []int16) error {
+	if ps := cw.PageStatistics(); ps != nil {
+		nonNull := idx.Len() - idx.NullN()
+		ps.IncNulls(int64(max(len(def)-nonNull, 0)))
+		ps.IncNumValues(int64(nonNull))
+		if err := ps.UpdateFromArrow(d.dict, false); err != nil {
+			return err
+		}
+	}
+	return cw.WriteDictIndices(idx, def, nil)
 }
 
 func dictEncoding(e parquet.Encoding) bool {
@@ -538,7 +575,9 @@ func (d *strDict) insert(v string, slot int) int32 {
 	return k - 1
 }
 
-// encode returns str as a dictionary array, or nil to write it as it is.
+// encode returns the indices of str's values in d's levels (the levels are
+// taken from str when it is the row group's first batch), or nil to write
+// str as it is.
 func (d *strDict) encode(mem memory.Allocator, str *array.String) arrow.Array {
 	if d.off {
 		return nil
@@ -589,9 +628,7 @@ func (d *strDict) encode(mem memory.Allocator, str *array.String) arrow.Array {
 	}
 	data := array.NewData(arrow.PrimitiveTypes.Int32, n, bufs, nil, nulls, 0)
 	defer data.Release()
-	indices := array.MakeFromData(data)
-	defer indices.Release()
-	return array.NewDictionaryArray(&arrow.DictionaryType{IndexType: arrow.PrimitiveTypes.Int32, ValueType: arrow.BinaryTypes.String}, indices, d.dict)
+	return array.MakeFromData(data)
 }
 
 // defLevels returns the definition levels of a flat optional column: 1 for
