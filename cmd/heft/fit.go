@@ -92,7 +92,7 @@ func runFit(cmd *cobra.Command, env *Env, f *fitFlags, args []string) error {
 	// The fit sample is one long-lived block of memory while reading and
 	// fitting produce garbage of a few batches at a time; the default GC
 	// target of twice the live heap would nearly double the peak. At 10%
-	// the 1M × 20 benchmark peaks at ~290 MiB instead of ~490 MiB RSS, for
+	// the 1M × 20 benchmark peaks at ~300 MiB instead of ~510 MiB RSS, for
 	// about 5% more CPU (measured).
 	defer debug.SetGCPercent(debug.SetGCPercent(10))
 	start := time.Now()
