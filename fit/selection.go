@@ -18,11 +18,14 @@ import (
 // the sides that still hold a wanted rank, carrying those ranks along.
 // Pivots come from a small sample at the wanted ranks' position, the
 // partition is branch-free, and a pivot that is the range's minimum splits
-// off its run of equal values, so ties end the recursion; past a depth of
-// 2·log2(n) a side is sorted
-// instead, Musser's introselect bound (Musser 1997, "Introspective sorting
-// and selection algorithms", Software: Practice and Experience 27(8)), so
-// the worst case stays O(n log n). x must not hold NaN.
+// off its run of equal values, so ties end the recursion. Past a depth of
+// 2·log2(n) a side is sorted instead, Musser's introselect bound (Musser
+// 1997, "Introspective sorting and selection algorithms", Software:
+// Practice and Experience 27(8)), so the worst case stays O(n log n).
+// x must not hold NaN (design columns never do). Equal values are
+// interchangeable, so the values read at the ranks are those of a sort,
+// bit for bit, except that +0 and −0 compare equal and may trade places,
+// as they may in any comparison sort.
 func selectRanks(x []float64, ranks []int) {
 	if len(ranks) == 0 || len(x) < 2 {
 		return
