@@ -142,11 +142,11 @@ const blockRows = 128
 type EffectsScratch struct {
 	rows int                             // blockRows once allocated
 	v    *[nComp][blockRows]float64      // per component, the block's rows
-	p    *[2][nSeries][blockRows]float64 // per arm and series (see gradSeries), the arm's rows
+	p    *[2][nSeries][blockRows]float64 // per arm and gradient series (sE0…), the arm's rows
 	at   [2][blockRows]int32             // per arm, the batch rows of the block's series
 	pos  [blockRows]int32                // per block row: its index among its arm's, −1 if unused
 	xg   [blockRows]float64              // a term's values gathered for one arm's rows
-	ser  [2][]float64                    // per arm, per term, the block's series sums
+	ser  [2][]float64                    // per arm, per term, series sums since the last flush
 	cur  []int                           // per 0/1 term, the next of its ones to visit
 	bin  binaryTerms                     // AddWith's own, when the caller has none
 }
