@@ -29,6 +29,7 @@ func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.
 			code = ExitInternal
 		}
 	}()
+	useFastSnappy()
 	env := &Env{Stdin: stdin, Stdout: stdout, Stderr: stderr}
 	root := newRoot(env)
 	root.SetArgs(args)
