@@ -155,6 +155,15 @@ func termName(g *fit.GLM, j int) string {
 // Policy returns the policy in force, with Cap resolved.
 func (s *Scorer) Policy() Policy { return s.policy }
 
+// WithoutOutcome returns a scorer that leaves Mu0 and Mu1 out, for a run
+// that neither writes predictions nor accumulates estimates: two linear
+// predictors per row saved.
+func (s *Scorer) WithoutOutcome() *Scorer {
+	c := *s
+	c.mu0, c.mu1 = nil, nil
+	return &c
+}
+
 // HasOutcome reports whether the scorer computes Mu0 and Mu1.
 func (s *Scorer) HasOutcome() bool { return s.mu0 != nil }
 

@@ -412,3 +412,32 @@ func TestNewTermsMismatch(t *testing.T) {
 		t.Error(err)
 	}
 }
+
+// WithoutOutcome drops only the predictions: propensities and weights stay
+// the same bits.
+func TestWithoutOutcomeKeepsWeights(t *testing.T) {
+	ref, b, cf := loadReference(t)
+	full, err := New(refModel(ref, cf, fit.FamilyGaussian), Policy{Estimand: ATE, Clip: 0.01})
+	if err != nil {
+		t.Fatal(err)
+	}
+	bare := full.WithoutOutcome()
+	if bare.HasOutcome() || !full.HasOutcome() {
+		t.Fatal("WithoutOutcome must drop the outcome models of the copy only")
+	}
+	var a, c Scores
+	if err := full.Score(b, pipeline.Location{File: "x"}, &a); err != nil {
+		t.Fatal(err)
+	}
+	if err := bare.Score(b, pipeline.Location{File: "x"}, &c); err != nil {
+		t.Fatal(err)
+	}
+	if c.Mu0 != nil || c.Mu1 != nil {
+		t.Fatal("predictions computed without outcome models")
+	}
+	for i := range a.E {
+		if a.E[i] != c.E[i] || a.W[i] != c.W[i] {
+			t.Fatalf("row %d: %v/%v vs %v/%v", i, a.E[i], a.W[i], c.E[i], c.W[i])
+		}
+	}
+}

@@ -228,6 +228,9 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 	// scoring run only writes the table.
 	accumulate := f.state != "" || f.report != "" || f.reportOnly || f.by != "" ||
 		f.gate.MaxSMD > 0 || f.gate.MinESSShare > 0 || f.gate.MaxPSI > 0
+	if !accumulate && !f.cols.Predictions {
+		scorer = scorer.WithoutOutcome()
+	}
 	var state *aggregate.State
 	prog := newProgress(env, total)
 	run := &scoreRun{env: env, f: f, m: m, scorer: scorer, mem: mem, format: format, prog: prog}
