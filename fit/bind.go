@@ -46,6 +46,7 @@ type binding struct {
 	// Categorical: level text → position. Integer-coded columns also get
 	// ints (dense over [lo, lo+len) when the codes are close together).
 	pos   map[string]int32
+	table *levelTable // pos again, for plain string arrays
 	ints  map[int64]int32
 	dense []int32
 	lo    int64
@@ -212,8 +213,10 @@ func (b *binding) lookup(s string) int32 {
 	return posUnseen
 }
 
-// setInts indexes integer-coded levels by value.
+// setInts indexes integer-coded levels by value (and string levels for
+// plain string arrays).
 func (b *binding) setInts() {
+	b.table = newLevelTable(b.pos)
 	if b.cls != classInt && b.cls != classUint {
 		return
 	}
@@ -272,6 +275,9 @@ func (b *binding) positions(arr arrow.Array, out []int32) {
 			}
 		}
 	default:
+		if b.table != nil && b.table.stringPositions(arr, out) {
+			break
+		}
 		if str, ok := stringValue(arr); ok {
 			var last string
 			lastPos := posUnseen
