@@ -86,16 +86,7 @@ func (s *arrowSink) Close() error {
 	if err := s.w.Close(); err != nil && s.err == nil {
 		s.err = At(s.name, fmt.Errorf("finish Arrow: %w", err))
 	}
-	if s.atomic == nil {
-		return s.err
-	}
-	if s.err != nil {
-		s.atomic.Abort()
-		return s.err
-	}
-	if err := s.atomic.Commit(); err != nil {
-		s.err = err
-	}
+	s.err = finishAtomic(s.atomic, s.err)
 	return s.err
 }
 

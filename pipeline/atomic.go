@@ -350,3 +350,16 @@ func SameFile(a, b string) bool {
 }
 
 var _ io.Writer = (*AtomicFile)(nil)
+
+// finishAtomic ends a sink's file: commit when the sink had no error, abort
+// otherwise. A sink writing to a plain writer has no file (a is nil).
+func finishAtomic(a *AtomicFile, err error) error {
+	if a == nil {
+		return err
+	}
+	if err != nil {
+		a.Abort()
+		return err
+	}
+	return a.Commit()
+}

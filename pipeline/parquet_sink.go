@@ -703,16 +703,7 @@ func (s *parquetSink) Close() error {
 		s.fw.Close()
 	}
 	s.resetDicts()
-	if s.atomic == nil {
-		return s.err
-	}
-	if s.err != nil {
-		s.atomic.Abort()
-		return s.err
-	}
-	if err := s.atomic.Commit(); err != nil {
-		s.err = err
-	}
+	s.err = finishAtomic(s.atomic, s.err)
 	return s.err
 }
 
