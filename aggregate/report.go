@@ -590,7 +590,7 @@ func (r *Report) WriteText(w io.Writer) error {
 				}
 			}
 			fmt.Fprintf(tw, "%s\t%d\t%d\t%d\t%s\t%s\t%s\t%s\t%s\t\n", left(g.values(r.By)), g.Rows, g.Treated, g.Control,
-				fmtG(float64(g.ESS.Treated)), fmtG(float64(g.ESS.Control)), fmtF(float64(g.MaxAbsSMDWeighted)), est, ci)
+				fmtCount(float64(g.ESS.Treated)), fmtCount(float64(g.ESS.Control)), fmtF(float64(g.MaxAbsSMDWeighted)), est, ci)
 		}
 		tw.Flush()
 	}
