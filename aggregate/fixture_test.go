@@ -91,7 +91,7 @@ func loadFixture(t testing.TB) *fixture {
 func (fx *fixture) model() *fit.Model {
 	terms := append([]string{"intercept"}, fixtureTerms...)
 	coef := make([]float64, len(terms))
-	return &fit.Model{
+	m := &fit.Model{
 		Format: fit.FormatName, FormatVersion: fit.FormatVersion, Created: "2026-12-01T00:00:00Z",
 		Encoding: fit.Encoding{Treatment: fit.Treatment{Column: "t", TreatedValue: "1", ControlValue: "0"},
 			Outcome: &fit.Outcome{Column: "y", Kind: "continuous"}},
@@ -100,8 +100,13 @@ func (fx *fixture) model() *fit.Model {
 			Treated: fit.GLM{Family: fit.FamilyGaussian, Terms: terms, Coef: coef},
 			Control: fit.GLM{Family: fit.FamilyGaussian, Terms: terms, Coef: coef}},
 		Reference: fx.ref,
-		Checksum:  "sha256:fixture",
 	}
+	sum, err := m.ComputeChecksum()
+	if err != nil {
+		panic(err)
+	}
+	m.Checksum = sum
+	return m
 }
 
 // part is rows [lo, hi) as the score stage hands them to an accumulator.

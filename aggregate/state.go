@@ -618,6 +618,11 @@ func UnmarshalState(name string, data []byte) (*State, error) {
 	if h.Model.Checksum != h.ModelChecksum {
 		return nil, fmt.Errorf("%s: model_checksum %s does not match the embedded model's %s", name, h.ModelChecksum, h.Model.Checksum)
 	}
+	// The embedded model supplies the covariances of the second standard
+	// error: an edit to it must not pass for the model it claims to be.
+	if sum, err := h.Model.ComputeChecksum(); err != nil || sum != h.Model.Checksum {
+		return nil, fmt.Errorf("%s: the embedded model was edited: its checksum is %s but its content hashes to %s", name, h.Model.Checksum, sum)
+	}
 	sh, err := newShared(h.Model, h.Policy, h.Config)
 	if err != nil {
 		return nil, fmt.Errorf("%s: %w", name, err)

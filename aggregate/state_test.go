@@ -182,7 +182,7 @@ func TestStateFile(t *testing.T) {
 	if err := json.Unmarshal(want, &h); err != nil {
 		t.Fatal(err)
 	}
-	if h["format"] != StateFormat || h["format_version"] != float64(StateVersion) || h["model_checksum"] != "sha256:fixture" {
+	if h["format"] != StateFormat || h["format_version"] != float64(StateVersion) || h["model_checksum"] != fx.model().Checksum {
 		t.Errorf("header %v %v %v", h["format"], h["format_version"], h["model_checksum"])
 	}
 
@@ -227,6 +227,9 @@ func TestReadStateErrors(t *testing.T) {
 		{"format", `format is "heft-model"`, edit(func(c map[string]any) { c["format"] = "heft-model" })},
 		{"version", "format_version 2", edit(func(c map[string]any) { c["format_version"] = 2 })},
 		{"checksum", "does not match", edit(func(c map[string]any) { c["model_checksum"] = "sha256:other" })},
+		{"edited model", "embedded model was edited", edit(func(c map[string]any) {
+			c["model"].(map[string]any)["propensity"].(map[string]any)["coef"].([]any)[1] = 0.25
+		})},
 		{"shape", "terms", edit(func(c map[string]any) {
 			c["state"].(map[string]any)["whole"].(map[string]any)["balance"].(map[string]any)["unweighted"] = []any{[]any{}, []any{}}
 		})},
