@@ -278,21 +278,16 @@ func (a *Effects) AddWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch) {
 	a.addWith(b, s, sc, nil)
 }
 
-// addWith is AddWith with the batch's 0/1 terms already found (bt nil: find
-// them here).
-func (a *Effects) addWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch, bt *binaryTerms) {
-	if a == nil || b == nil || s == nil || b.Y == nil || sc == nil || a.Check() != nil {
-		return
-	}
-	if !sc.ok() {
-		*sc = *NewEffectsScratch() // the zero value is ready to use
-	}
-	n := min(b.N, len(b.T), len(b.Y), len(s.E), len(s.W), len(s.InSupport))
+// shape returns the rows of a batch that every buffer covers, and whether
+// the gradient sums and the augmented estimators can use it; it records in
+// a when they cannot (NoGradient, NoAugmented).
+func (a *Effects) shape(b *fit.Batch, s *score.Scores) (n int, grad, aug bool) {
+	n = min(b.N, len(b.T), len(b.Y), len(s.E), len(s.W), len(s.InSupport))
 	if b.YValid != nil {
 		n = min(n, len(b.YValid))
 	}
 	p := a.Config.NTerms
-	grad := p > 0 && len(a.Grad) == p*nSlots && len(b.X) == p-1
+	grad = p > 0 && len(a.Grad) == p*nSlots && len(b.X) == p-1
 	if grad {
 		for _, x := range b.X {
 			if len(x) < n {
@@ -303,11 +298,25 @@ func (a *Effects) addWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch, bt 
 	if p > 0 && !grad {
 		a.NoGradient = true
 	}
-	aug := a.Config.HasOutcome
+	aug = a.Config.HasOutcome
 	if aug && (len(s.Mu0) < n || len(s.Mu1) < n) {
 		a.NoAugmented = true
 		aug = false
 	}
+	return n, grad, aug
+}
+
+// addWith is AddWith with the batch's 0/1 terms already found (bt nil: find
+// them here).
+func (a *Effects) addWith(b *fit.Batch, s *score.Scores, sc *EffectsScratch, bt *binaryTerms) {
+	if a == nil || b == nil || s == nil || b.Y == nil || sc == nil || a.Check() != nil {
+		return
+	}
+	if !sc.ok() {
+		*sc = *NewEffectsScratch() // the zero value is ready to use
+	}
+	n, grad, aug := a.shape(b, s)
+	p := a.Config.NTerms
 	pol := a.Config.Policy
 	clipLo, clipHi := pol.Clip, 1-pol.Clip
 	clip := pol.Clip > 0

@@ -14,27 +14,7 @@ func (a *Effects) addDense(b *fit.Batch, s *score.Scores) {
 	if a == nil || b == nil || s == nil || b.Y == nil || a.Check() != nil {
 		return
 	}
-	n := min(b.N, len(b.T), len(b.Y), len(s.E), len(s.W), len(s.InSupport))
-	if b.YValid != nil {
-		n = min(n, len(b.YValid))
-	}
-	p := a.Config.NTerms
-	grad := p > 0 && len(a.Grad) == p*nSlots && len(b.X) == p-1
-	if grad {
-		for _, x := range b.X {
-			if len(x) < n {
-				grad = false
-			}
-		}
-	}
-	if p > 0 && !grad {
-		a.NoGradient = true
-	}
-	aug := a.Config.HasOutcome
-	if aug && (len(s.Mu0) < n || len(s.Mu1) < n) {
-		a.NoAugmented = true
-		aug = false
-	}
+	n, grad, aug := a.shape(b, s)
 	pol := a.Config.Policy
 	clipLo, clipHi := pol.Clip, 1-pol.Clip
 	clip := pol.Clip > 0
