@@ -363,3 +363,50 @@ func finishAtomic(a *AtomicFile, err error) error {
 	}
 	return a.Commit()
 }
+
+// CopyFrom appends n bytes of src, starting at offset off, after everything
+// written so far. It first waits for the pending writes, so that the bytes
+// land in order, then lets the kernel copy them (copy_file_range on Linux
+// when src is a regular file), so they never pass through user memory.
+// src's file offset is moved; the caller owns src.
+func (a *AtomicFile) CopyFrom(src *os.File, off, n int64) error {
+	if a.err == nil && a.done {
+		a.err = At(a.target, errors.New("write after commit or abort"))
+	}
+	if a.err != nil {
+		return a.err
+	}
+	if err := a.quiesce(); err != nil {
+		a.err = err
+		return err
+	}
+	if _, err := src.Seek(off, io.SeekStart); err != nil {
+		return At(src.Name(), fmt.Errorf("seek: %w", err))
+	}
+	w, err := a.f.ReadFrom(&io.LimitedReader{R: src, N: n})
+	if err == nil && w != n {
+		err = fmt.Errorf("copied %d of %d bytes from %s: it ended early", w, n, src.Name())
+	}
+	if err != nil {
+		a.err = At(a.target, fmt.Errorf("write: %w", bare(err)))
+		return a.err
+	}
+	return nil
+}
+
+// quiesce hands the current chunk to the writer goroutine and waits until
+// every chunk has been written (each is back on the free list), so the file
+// holds everything written so far.
+func (a *AtomicFile) quiesce() error {
+	if a.cur != nil {
+		a.flushChunk()
+	}
+	held := make([][]byte, 0, a.chunks)
+	for range a.chunks {
+		held = append(held, <-a.free)
+	}
+	for _, c := range held {
+		a.free <- c
+	}
+	return a.writeErr()
+}

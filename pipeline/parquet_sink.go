@@ -59,6 +59,8 @@ type ParquetSinkOptions struct {
 	// NoArrowSchema leaves out the serialized Arrow schema ("ARROW:schema"),
 	// which lets Arrow readers restore types Parquet cannot express.
 	NoArrowSchema bool
+	// PageIndex writes a column index and an offset index for every column.
+	PageIndex bool
 }
 
 // NewParquetSink writes a Parquet file that appears at target only when
@@ -136,6 +138,9 @@ func newParquetSink(w io.Writer, name string, schema *arrow.Schema, opt ParquetS
 	}
 	if opt.CreatedBy != "" {
 		props = append(props, parquet.WithCreatedBy(opt.CreatedBy))
+	}
+	if opt.PageIndex {
+		props = append(props, parquet.WithPageIndexEnabled(true))
 	}
 	if opt.DataPageSize > 0 {
 		props = append(props, parquet.WithDataPageSize(opt.DataPageSize))

@@ -95,7 +95,6 @@ func OutputSchema(in *arrow.Schema, c Columns, meta arrow.Metadata) (*arrow.Sche
 // with Mu0 and Mu1 when c.Predictions (Stage checks both). The caller
 // releases the result; rec is unchanged.
 func Append(mem memory.Allocator, schema *arrow.Schema, rec arrow.RecordBatch, keep int, sc *Scores, c Columns) arrow.RecordBatch {
-	n := sc.N
 	if keep <= 0 || keep > int(rec.NumCols()) {
 		keep = int(rec.NumCols())
 	}
@@ -103,6 +102,29 @@ func Append(mem memory.Allocator, schema *arrow.Schema, rec arrow.RecordBatch, k
 	for i := 0; i < keep; i++ {
 		cols = append(cols, rec.Column(i))
 	}
+	built := appendedArrays(mem, sc, c)
+	cols = append(cols, built...)
+	out := array.NewRecordBatch(schema, cols, int64(sc.N))
+	for _, a := range built {
+		a.Release()
+	}
+	return out
+}
+
+// Appended returns a record batch of the appended columns alone, built from
+// sc with mem; schema is OutputSchema of an empty input. It is what a
+// splicing sink takes, which copies the input's columns as bytes.
+func Appended(mem memory.Allocator, schema *arrow.Schema, sc *Scores, c Columns) arrow.RecordBatch {
+	built := appendedArrays(mem, sc, c)
+	out := array.NewRecordBatch(schema, built, int64(sc.N))
+	for _, a := range built {
+		a.Release()
+	}
+	return out
+}
+
+func appendedArrays(mem memory.Allocator, sc *Scores, c Columns) []arrow.Array {
+	n := sc.N
 	built := []arrow.Array{
 		float64Array(mem, sc.E[:n], nil),
 		float64Array(mem, sc.W[:n], sc.WValid[:n]),
@@ -111,12 +133,7 @@ func Append(mem memory.Allocator, schema *arrow.Schema, rec arrow.RecordBatch, k
 	if c.Predictions {
 		built = append(built, float64Array(mem, sc.Mu0[:n], nil), float64Array(mem, sc.Mu1[:n], nil))
 	}
-	cols = append(cols, built...)
-	out := array.NewRecordBatch(schema, cols, int64(n))
-	for _, a := range built {
-		a.Release()
-	}
-	return out
+	return built
 }
 
 // float64Array copies v into one buffer from mem and wraps it as an array,

@@ -29,6 +29,9 @@ type StageOptions struct {
 	OutputSchema *arrow.Schema // from OutputSchema; required with WriteTable
 	Keep         int           // input columns to keep (drops trailing partition columns); 0 = all
 	WriteTable   bool          // false for a report-only run: Apply returns out = nil
+	// AppendedOnly makes out the appended columns alone (OutputSchema then
+	// describes only them), for a sink that copies the input's columns.
+	AppendedOnly bool
 	// NewAccumulator, when not nil, is called once per batch; the returned
 	// value, after Add, is Apply's partial, so the engine can fold partials
 	// in input order and reports do not depend on the number of workers.
@@ -91,6 +94,12 @@ func (s *Stage) Apply(ctx context.Context, rec arrow.RecordBatch, loc pipeline.L
 	}
 	if s.opt.Columns.Predictions && !s.sc.HasOutcome() {
 		return nil, nil, pipeline.At(loc.File, fmt.Errorf("--predictions: the model has no outcome models"))
+	}
+	if s.opt.AppendedOnly {
+		if s.opt.OutputSchema == nil || s.opt.OutputSchema.NumFields() != len(s.opt.Columns.appended()) {
+			return nil, nil, pipeline.At(loc.File, fmt.Errorf("score stage: the output schema is not the appended columns"))
+		}
+		return Appended(s.opt.Alloc, s.opt.OutputSchema, &s.scores, s.opt.Columns), partial, nil
 	}
 	keep := s.opt.Keep
 	if keep <= 0 {

@@ -32,6 +32,7 @@ type scoreFlags struct {
 	by                                                string
 	minSegmentRows, maxSegments                       int
 	gate                                              aggregate.Gate
+	reencode, compressionSet, rowGroupSet             bool
 }
 
 func newScoreCmd(env *Env) *cobra.Command {
@@ -53,6 +54,8 @@ partitions. With a gate (--max-smd, --min-ess-share, --max-psi) heft exits
 with code 7 after writing its outputs when the weights fail it.`,
 		Args: usageArgs(cobra.MinimumNArgs(1)),
 		RunE: func(cmd *cobra.Command, args []string) error {
+			f.compressionSet = cmd.Flags().Changed("compression")
+			f.rowGroupSet = cmd.Flags().Changed("row-group-rows")
 			return runScore(cmd.Context(), env, &f, args)
 		},
 	}
@@ -72,8 +75,9 @@ with code 7 after writing its outputs when the weights fail it.`,
 	fl.StringVar(&f.cols.InSupport, "in-support-column", f.cols.InSupport, "name of the appended in-support column")
 	fl.StringVar(&f.cols.Mu0, "mu0-column", f.cols.Mu0, "name of the appended control-outcome prediction")
 	fl.StringVar(&f.cols.Mu1, "mu1-column", f.cols.Mu1, "name of the appended treated-outcome prediction")
-	fl.StringVar(&f.compression, "compression", "snappy", "Parquet compression: snappy, zstd or none")
-	fl.Int64Var(&f.rowGroupRows, "row-group-rows", 131072, "rows per Parquet row group in the output")
+	fl.StringVar(&f.compression, "compression", "snappy", "Parquet compression: snappy, zstd or none (default when splicing: the input's)")
+	fl.Int64Var(&f.rowGroupRows, "row-group-rows", 131072, "rows per Parquet row group in the output (re-encodes every column)")
+	fl.BoolVar(&f.reencode, "reencode", false, "decode and re-encode every column rather than copy the input's column chunks")
 	fl.IntVar(&f.batchRows, "batch-rows", 65536, "rows per batch in flight (memory is bounded by batch size × queue depth)")
 	fl.IntVar(&f.workers, "workers", runtime.GOMAXPROCS(0), "scoring workers")
 	fl.StringVar(&f.state, "state", "", "write the mergeable accumulator state here (for 'heft merge')")
@@ -233,7 +237,9 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 	}
 	var state *aggregate.State
 	prog := newProgress(env, total)
-	run := &scoreRun{env: env, f: f, m: m, scorer: scorer, mem: mem, format: format, prog: prog}
+	run := &scoreRun{env: env, f: f, m: m, scorer: scorer, mem: mem, format: format, prog: prog,
+		needOutcome: accumulate || f.cols.Predictions,
+		splice:      !f.reencode && format == formatParquet && (mode == outFile || mode == outDir)}
 
 	// fold merges each batch's partial state in input order, so the report
 	// does not depend on the number of workers.
@@ -262,21 +268,21 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 			return outputError{err}
 		}
 		for _, in := range ins {
-			src, err := pipeline.Open(ctx, in, opt)
+			op, err := run.open(ctx, in, opt, run.splicePlan(in))
 			if err != nil {
 				return err
 			}
-			if err := newState(src.Schema()); err != nil {
-				src.Close()
+			if err := newState(op.src.Schema()); err != nil {
+				op.src.Close()
 				return err
 			}
 			target := dir.Path(in.Rel, format.ext())
 			if err := os.MkdirAll(filepath.Dir(target), 0o755); err != nil {
-				src.Close()
+				op.src.Close()
 				return outputError{err}
 			}
-			err = run.one(ctx, src, in, target, state, fold)
-			src.Close()
+			err = run.one(ctx, op, in, target, state, fold)
+			op.src.Close()
 			if err != nil {
 				return err
 			}
@@ -284,6 +290,18 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 		}
 		if err := dir.Success(); err != nil {
 			return outputError{err}
+		}
+	case outFile:
+		op, err := run.open(ctx, ins[0], opt, run.splicePlan(ins[0]))
+		if err != nil {
+			return err
+		}
+		defer op.src.Close()
+		if err := newState(op.src.Schema()); err != nil {
+			return err
+		}
+		if err := run.one(ctx, op, ins[0], f.out, state, fold); err != nil {
+			return err
 		}
 	default:
 		src, err := pipeline.Concat(ctx, ins, opt)
@@ -303,7 +321,12 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 		} else if mode == outNone {
 			target = ""
 		}
-		if err := run.one(ctx, src, ins[0], target, state, fold); err != nil {
+		keep := src.Schema().NumFields()
+		if ps, ok := src.(pipeline.PartitionedSource); ok {
+			keep -= len(ps.PartitionColumns())
+		}
+		op := input{src: src, file: arrow.NewSchema(src.Schema().Fields()[:keep], nil)}
+		if err := run.one(ctx, op, ins[0], target, state, fold); err != nil {
 			return err
 		}
 	}

@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"path/filepath"
 	"strings"
@@ -61,19 +62,141 @@ type scoreRun struct {
 	mem    memory.Allocator
 	format tableFormat
 	prog   *progress
+	// needOutcome: the accumulators or --predictions use the outcome, so it
+	// is read when the table has it.
+	needOutcome bool
+	// splice: Parquet output may copy the input's column chunks (see
+	// splicePlan); toldWhy: the reason it may not was logged.
+	splice  bool
+	toldWhy bool
 }
 
-// one streams src through the model into target ("" = no table, "-" =
+// input is one opened input.
+type input struct {
+	src pipeline.Source
+	// file is the file's own columns, written to the output; the source may
+	// read fewer (splicing) or add partition columns.
+	file *arrow.Schema
+	// plan is the file's layout when its columns are spliced rather than
+	// re-encoded; nil to re-encode.
+	plan *pipeline.SplicePlan
+}
+
+// open opens in for scoring. With a splice plan (see splicePlan) only the
+// model's columns are read.
+func (r *scoreRun) open(ctx context.Context, in pipeline.Input, opt pipeline.SourceOptions, plan *pipeline.SplicePlan) (input, error) {
+	src, err := pipeline.Open(ctx, in, opt)
+	if err != nil {
+		return input{}, err
+	}
+	schema := src.Schema()
+	keep := schema.NumFields()
+	if ps, ok := src.(pipeline.PartitionedSource); ok {
+		keep -= len(ps.PartitionColumns())
+	}
+	file := arrow.NewSchema(schema.Fields()[:keep], nil)
+	if plan == nil {
+		return input{src: src, file: file}, nil
+	}
+	src.Close()
+	opt.Columns = r.modelColumns(schema)
+	if src, err = pipeline.Open(ctx, in, opt); err != nil {
+		return input{}, err
+	}
+	return input{src: src, file: file, plan: plan}, nil
+}
+
+// modelColumns names the columns scoring reads from a table of schema: the
+// covariates, the treatment, the outcome when it is used and present, and
+// the --by columns.
+func (r *scoreRun) modelColumns(schema *arrow.Schema) []string {
+	e := &r.m.Encoding
+	cols := []string{e.Treatment.Column}
+	for _, c := range e.Columns {
+		cols = append(cols, c.Name)
+	}
+	if r.withOutcome(schema) {
+		cols = append(cols, e.Outcome.Column)
+	}
+	cols = append(cols, splitList(r.f.by)...)
+	seen := map[string]bool{}
+	out := cols[:0]
+	for _, c := range cols {
+		if !seen[c] {
+			seen[c] = true
+			out = append(out, c)
+		}
+	}
+	return out
+}
+
+// withOutcome: the outcome is decoded when something uses it and the table
+// has it: a nightly table scored before its outcomes arrive still gets
+// weights, balance and overlap.
+func (r *scoreRun) withOutcome(schema *arrow.Schema) bool {
+	o := r.m.Encoding.Outcome
+	return r.needOutcome && o != nil && len(schema.FieldIndices(o.Column)) > 0
+}
+
+// splicePlan returns in's layout when its scored Parquet output can copy
+// its column chunks as bytes rather than decode and re-encode every column
+// (the default whenever it applies), else nil, logging why when the reason
+// is not plain: --reencode, a non-Parquet input or output.
+func (r *scoreRun) splicePlan(in pipeline.Input) *pipeline.SplicePlan {
+	f := r.f
+	if !r.splice || in.Format != pipeline.FormatParquet || in.Path == pipeline.Stdin {
+		return nil
+	}
+	why := func(format string, args ...any) *pipeline.SplicePlan {
+		if !r.toldWhy {
+			r.toldWhy = true
+			r.env.Logf("heft score: re-encoding every column: "+format, args...)
+		}
+		return nil
+	}
+	if f.rowGroupSet {
+		return why("--row-group-rows sets new row groups (copying column chunks keeps the input's)")
+	}
+	plan, err := pipeline.PlanSplice(in.Path)
+	var ns *pipeline.NoSpliceError
+	switch {
+	case errors.As(err, &ns):
+		r.toldWhy = false // a reason about one file is told for each
+		return why("%s", ns.Error())
+	case err != nil:
+		return nil // the general path reports what is wrong with the file
+	}
+	if c := plan.Compression(); f.compressionSet && c != f.compression {
+		if c == "" {
+			c = "mixed or other codecs"
+		}
+		return why("the input's column chunks are %s, --compression asks for %s", c, f.compression)
+	}
+	return plan
+}
+
+// spliceCodec is the appended columns' codec: --compression when given,
+// else the input's when all its chunks share one we write, else snappy.
+func (r *scoreRun) spliceCodec(plan *pipeline.SplicePlan) string {
+	if r.f.compressionSet {
+		return r.f.compression
+	}
+	if c := plan.Compression(); c != "" {
+		return c
+	}
+	return "snappy"
+}
+
+// one streams in through the model into target ("" = no table, "-" =
 // Arrow stream on stdout), folding per-batch states into state. The target
 // appears only if everything succeeded.
-func (r *scoreRun) one(ctx context.Context, src pipeline.Source, in pipeline.Input, target string, state *aggregate.State, fold func(any) error) error {
+func (r *scoreRun) one(ctx context.Context, op input, in pipeline.Input, target string, state *aggregate.State, fold func(any) error) error {
 	f := r.f
+	src := op.src
 	schema := src.Schema()
-	// The outcome is decoded when the table has it: a nightly table scored
-	// before its outcomes arrive still gets weights, balance and overlap.
-	withOutcome := r.m.Encoding.Outcome != nil && len(schema.FieldIndices(r.m.Encoding.Outcome.Column)) > 0
-	if r.m.Encoding.Outcome != nil && !withOutcome {
-		r.env.Logf("heft score: %s has no outcome column %q: weights and diagnostics only, no effect estimates", in.Path, r.m.Encoding.Outcome.Column)
+	withOutcome := r.withOutcome(schema)
+	if o := r.m.Encoding.Outcome; o != nil && r.needOutcome && !withOutcome {
+		r.env.Logf("heft score: %s has no outcome column %q: weights and diagnostics only, no effect estimates", in.Path, o.Column)
 	}
 	enc, err := r.m.Encoding.Bind(schema, in.Path, withOutcome, f.unseen)
 	if err != nil {
@@ -81,19 +204,21 @@ func (r *scoreRun) one(ctx context.Context, src pipeline.Source, in pipeline.Inp
 	}
 	// Partition columns exist only in the folder names; the written file keeps
 	// the file's own columns.
-	keep := schema.NumFields()
-	if ps, ok := src.(pipeline.PartitionedSource); ok {
-		keep -= len(ps.PartitionColumns())
-	}
-	fileSchema := arrow.NewSchema(schema.Fields()[:keep], nil)
+	keep := op.file.NumFields()
 	var inMeta arrow.Metadata
 	if ms, ok := src.(pipeline.MetadataSource); ok {
 		inMeta = ms.Metadata()
 	}
 	meta := score.MergeMetadata(inMeta, score.Metadata(r.m, r.scorer.Policy(), f.cols, Version))
-	outSchema, err := score.OutputSchema(fileSchema, f.cols, meta)
+	outSchema, err := score.OutputSchema(op.file, f.cols, meta)
 	if err != nil {
 		return usagef(err)
+	}
+	if op.plan != nil && target != "" {
+		// The sink takes the appended columns alone.
+		if outSchema, err = score.OutputSchema(arrow.NewSchema(nil, nil), f.cols, meta); err != nil {
+			return usagef(err)
+		}
 	}
 	var sink pipeline.Committer
 	switch {
@@ -103,6 +228,10 @@ func (r *scoreRun) one(ctx context.Context, src pipeline.Source, in pipeline.Inp
 		sink, err = pipeline.NewArrowStreamSink(r.env.Stdout, outSchema, pipeline.ArrowSinkOptions{Alloc: r.mem, Metadata: meta})
 	case r.format == formatArrow:
 		sink, err = pipeline.NewArrowFileSink(target, outSchema, pipeline.ArrowSinkOptions{Alloc: r.mem, Metadata: meta})
+	case op.plan != nil:
+		sink, err = pipeline.NewSpliceSink(target, op.plan, outSchema, pipeline.SpliceOptions{
+			Compression: r.spliceCodec(op.plan), Metadata: meta, CreatedBy: "heft " + Version, Alloc: r.mem,
+		})
 	default:
 		sink, err = pipeline.NewParquetSink(target, outSchema, pipeline.ParquetSinkOptions{
 			Compression: f.compression, RowGroupRows: f.rowGroupRows, Metadata: meta,
@@ -119,6 +248,7 @@ func (r *scoreRun) one(ctx context.Context, src pipeline.Source, in pipeline.Inp
 	newT := func() (pipeline.Transform, error) {
 		return score.NewStage(enc, r.scorer, score.StageOptions{
 			Alloc: r.mem, Columns: f.cols, OutputSchema: outSchema, Keep: keep, WriteTable: target != "",
+			AppendedOnly:   op.plan != nil,
 			NewAccumulator: newAcc,
 		}), nil
 	}

@@ -1,0 +1,533 @@
+package pipeline
+
+import (
+	"bytes"
+	"context"
+	"encoding/base64"
+	"encoding/binary"
+	"errors"
+	"fmt"
+	"os"
+	"slices"
+
+	"github.com/apache/arrow-go/v18/arrow"
+	"github.com/apache/arrow-go/v18/arrow/flight"
+	"github.com/apache/arrow-go/v18/arrow/memory"
+	"github.com/parquet-go/parquet-go/encoding/thrift"
+	"github.com/parquet-go/parquet-go/format"
+)
+
+// SpliceOptions configure a splice sink.
+type SpliceOptions struct {
+	Compression string         // codec of the appended columns, as in ParquetSinkOptions; "" = snappy
+	Metadata    arrow.Metadata // the output's key-value metadata; the sink adds ARROW:schema when the input has one
+	CreatedBy   string         // writer name for the appended columns' encoder (the footer keeps the input's)
+	Alloc       memory.Allocator
+	Workers     int // columns encoded at once, as in ParquetSinkOptions
+}
+
+// NewSpliceSink writes to target the Parquet file that plan describes with
+// the columns of schema appended, without decoding or re-encoding the
+// input's columns: row group by row group it copies each input column
+// chunk's bytes as they are (dictionary page, statistics and all), encodes
+// only the appended columns for that row group (with the Parquet sink, into
+// memory) and copies their chunks after the input's; at the end it copies
+// the input's bloom filters and column indexes, rewrites its offset indexes
+// with the chunks' new offsets, and writes a footer whose schema adds the
+// appended leaves. Row groups are the input's; the footer keeps the input's
+// created_by, so that readers apply the same workarounds for the input
+// writer's quirks to its chunks.
+//
+// The sink takes batches of the appended columns only, in input row order,
+// exactly as many rows as the input holds. The file appears at target only
+// when Close returns nil (see CreateAtomic). Memory is one row group's
+// appended columns, encoded, plus the Parquet sink's buffers.
+//
+// The footer is rewritten with parquet-go's thrift structures, so a footer
+// field they do not know is dropped (readers ignore such fields anyway).
+func NewSpliceSink(target string, plan *SplicePlan, schema *arrow.Schema, opt SpliceOptions) (Committer, error) {
+	if opt.Alloc == nil {
+		opt.Alloc = memory.DefaultAllocator
+	}
+	if opt.Compression == "" {
+		opt.Compression = "snappy"
+	}
+	s := &spliceSink{target: target, plan: plan, schema: schema, opt: opt, pos: 4}
+	for _, f := range schema.Fields() {
+		if !flatType(f.Type) {
+			return nil, At(target, fmt.Errorf("column %q: nested type %s cannot be appended", f.Name, f.Type))
+		}
+	}
+	s.arrowSchema = s.outputArrowSchema()
+	// The appended leaves as the encoder writes them, from an empty file.
+	empty, err := s.encode(nil, 0)
+	if err != nil {
+		return nil, err
+	}
+	s.addSchema = empty.Schema[1:]
+	s.addOrders = empty.ColumnOrders
+	s.version = empty.Version
+	if s.in, err = os.Open(plan.path); err != nil {
+		return nil, At(plan.path, err)
+	}
+	if s.af, err = CreateAtomic(target); err != nil {
+		s.in.Close()
+		return nil, err
+	}
+	if _, err := s.af.Write([]byte("PAR1")); err != nil {
+		s.Abort()
+		return nil, err
+	}
+	return s, nil
+}
+
+type spliceSink struct {
+	target      string
+	plan        *SplicePlan
+	schema      *arrow.Schema // the appended columns
+	opt         SpliceOptions
+	arrowSchema string // the output's ARROW:schema entry; "" = none
+
+	in  *os.File
+	af  *AtomicFile
+	pos int64 // bytes written to af
+
+	rg     int   // current row group of the input
+	rgRows int64 // its rows written to w so far
+	w      Committer
+	buf    bytes.Buffer
+
+	rowGroups []format.RowGroup
+	shift     [][]int64         // per row group and input column: new offset − old offset
+	added     [][]appendedChunk // per row group and appended column
+	addSchema []format.SchemaElement
+	addOrders []format.ColumnOrder
+	version   int32
+
+	err    error // sticky
+	closed bool
+}
+
+// appendedChunk holds an appended column chunk's page indexes until the end
+// of the file, the offset index already shifted to the chunk's new place.
+type appendedChunk struct {
+	columnIndex, offsetIndex []byte
+}
+
+func (s *spliceSink) fail(err error) error {
+	if err != nil && s.err == nil {
+		var pe *Error
+		if !errors.As(err, &pe) {
+			err = At(s.target, err)
+		}
+		s.err = err
+	}
+	return s.err
+}
+
+// Write takes the next rows' appended columns.
+func (s *spliceSink) Write(ctx context.Context, rec arrow.RecordBatch) error {
+	if s.err != nil {
+		return s.err
+	}
+	if s.closed {
+		return s.fail(errors.New("write after close"))
+	}
+	rows := s.plan.meta.RowGroups
+	for off := int64(0); off < rec.NumRows(); {
+		if s.rg >= len(rows) {
+			return s.fail(fmt.Errorf("more rows than the %d of the input %s", s.plan.meta.NumRows, s.plan.path))
+		}
+		n := min(rows[s.rg].NumRows-s.rgRows, rec.NumRows()-off)
+		part := rec
+		if off != 0 || n != rec.NumRows() {
+			part = rec.NewSlice(off, off+n)
+		}
+		err := s.writeRows(ctx, part)
+		if part != rec {
+			part.Release()
+		}
+		if err != nil {
+			return s.fail(err)
+		}
+		off += n
+	}
+	return nil
+}
+
+func (s *spliceSink) writeRows(ctx context.Context, rec arrow.RecordBatch) error {
+	rg := &s.plan.meta.RowGroups[s.rg]
+	if s.w == nil {
+		s.buf.Reset()
+		w, err := NewParquetWriter(&s.buf, s.schema, s.writerOptions(rg.NumRows))
+		if err != nil {
+			return err
+		}
+		s.w = w
+	}
+	if err := s.w.Write(ctx, rec); err != nil {
+		return err
+	}
+	s.rgRows += rec.NumRows()
+	if s.rgRows < rg.NumRows {
+		return nil
+	}
+	err := s.w.Close()
+	s.w = nil
+	if err != nil {
+		return err
+	}
+	return s.finishRowGroup()
+}
+
+func (s *spliceSink) writerOptions(rows int64) ParquetSinkOptions {
+	return ParquetSinkOptions{
+		Compression: s.opt.Compression, RowGroupRows: max(rows, 1), CreatedBy: s.opt.CreatedBy,
+		Alloc: s.opt.Alloc, Workers: s.opt.Workers, NoArrowSchema: true, PageIndex: s.plan.pageIndex,
+	}
+}
+
+// encode writes rec (nil: no rows) as a Parquet file of one row group into
+// s.buf and returns its footer.
+func (s *spliceSink) encode(rec arrow.RecordBatch, rows int64) (*format.FileMetaData, error) {
+	s.buf.Reset()
+	w, err := NewParquetWriter(&s.buf, s.schema, s.writerOptions(rows))
+	if err != nil {
+		return nil, err
+	}
+	if rec != nil {
+		if err := w.Write(context.Background(), rec); err != nil {
+			w.Abort()
+			return nil, err
+		}
+	}
+	if err := w.Close(); err != nil {
+		return nil, err
+	}
+	return parseFooter(s.buf.Bytes())
+}
+
+// parseFooter decodes the footer of the Parquet file in b.
+func parseFooter(b []byte) (*format.FileMetaData, error) {
+	if len(b) < 12 || string(b[len(b)-4:]) != "PAR1" {
+		return nil, errors.New("appended columns: the encoder wrote no Parquet footer")
+	}
+	n := int(binary.LittleEndian.Uint32(b[len(b)-8:]))
+	if n > len(b)-12 {
+		return nil, errors.New("appended columns: footer length out of range")
+	}
+	var m format.FileMetaData
+	if err := thrift.Unmarshal(&thriftCompact, b[len(b)-8-n:len(b)-8], &m); err != nil {
+		return nil, fmt.Errorf("appended columns: footer: %w", err)
+	}
+	return &m, nil
+}
+
+// finishRowGroup writes row group s.rg: the input's chunks, then the
+// appended ones the encoder left in s.buf.
+func (s *spliceSink) finishRowGroup() error {
+	small, err := parseFooter(s.buf.Bytes())
+	if err != nil {
+		return err
+	}
+	in := &s.plan.meta.RowGroups[s.rg]
+	if len(small.RowGroups) != 1 || small.RowGroups[0].NumRows != in.NumRows {
+		return fmt.Errorf("appended columns of row group %d: the encoder wrote %d row groups, not one of %d rows", s.rg, len(small.RowGroups), in.NumRows)
+	}
+	start := s.pos
+	ranges := s.plan.chunks[s.rg]
+	shifts := make([]int64, len(ranges))
+	// Chunks that follow each other in the input are copied in one go.
+	for j := 0; j < len(ranges); {
+		k := j + 1
+		for k < len(ranges) && ranges[k].off == ranges[k-1].end() {
+			k++
+		}
+		span := byteRange{ranges[j].off, ranges[k-1].end() - ranges[j].off}
+		if err := s.af.CopyFrom(s.in, span.off, span.n); err != nil {
+			return err
+		}
+		for c := j; c < k; c++ {
+			shifts[c] = s.pos - span.off
+		}
+		s.pos += span.n
+		j = k
+	}
+	out := format.RowGroup{
+		Columns:       make([]format.ColumnChunk, 0, len(in.Columns)+len(s.addSchema)),
+		TotalByteSize: in.TotalByteSize, NumRows: in.NumRows, SortingColumns: in.SortingColumns,
+		FileOffset: start, Ordinal: int16(s.rg),
+	}
+	for j, c := range in.Columns {
+		shiftChunk(&c, ranges[j], shifts[j])
+		out.Columns = append(out.Columns, c)
+	}
+	b := s.buf.Bytes()
+	added := make([]appendedChunk, 0, len(small.RowGroups[0].Columns))
+	for _, c := range small.RowGroups[0].Columns {
+		md := &c.MetaData
+		r := byteRange{md.DataPageOffset, md.TotalCompressedSize}
+		if d := md.DictionaryPageOffset; d > 0 && d < r.off {
+			r.off = d
+		}
+		if r.off < 4 || r.end() > int64(len(b)) {
+			return fmt.Errorf("appended column %v: chunk outside the encoder's output", []string(md.PathInSchema))
+		}
+		d := s.pos - r.off
+		var a appendedChunk
+		if c.ColumnIndexLength > 0 {
+			a.columnIndex = slices.Clone(b[c.ColumnIndexOffset : c.ColumnIndexOffset+int64(c.ColumnIndexLength)])
+		}
+		if c.OffsetIndexLength > 0 {
+			if a.offsetIndex, err = shiftOffsetIndex(b[c.OffsetIndexOffset:c.OffsetIndexOffset+int64(c.OffsetIndexLength)], d); err != nil {
+				return err
+			}
+		}
+		if _, err := s.af.Write(b[r.off:r.end()]); err != nil {
+			return err
+		}
+		s.pos += r.n
+		shiftChunk(&c, r, d)
+		out.Columns = append(out.Columns, c)
+		out.TotalByteSize += md.TotalUncompressedSize
+		added = append(added, a)
+	}
+	out.TotalCompressedSize = s.pos - start
+	s.rowGroups = append(s.rowGroups, out)
+	s.shift = append(s.shift, shifts)
+	s.added = append(s.added, added)
+	s.rg++
+	s.rgRows = 0
+	return nil
+}
+
+// shiftChunk moves a column chunk's offsets by d bytes (the chunk was at
+// r) and clears its page index and bloom filter places, set at the end.
+func shiftChunk(c *format.ColumnChunk, r byteRange, d int64) {
+	md := &c.MetaData
+	md.DataPageOffset += d
+	if md.DictionaryPageOffset > 0 {
+		md.DictionaryPageOffset += d
+	}
+	if md.IndexPageOffset > 0 {
+		md.IndexPageOffset += d
+	}
+	// file_offset is deprecated and writers disagree on it (the first page,
+	// or where inline metadata would follow the chunk); keep it relative.
+	if c.FileOffset >= r.off && c.FileOffset <= r.end() {
+		c.FileOffset += d
+	} else {
+		c.FileOffset = r.off + d
+	}
+	c.ColumnIndexOffset, c.ColumnIndexLength = 0, 0
+	c.OffsetIndexOffset, c.OffsetIndexLength = 0, 0
+	md.BloomFilterOffset = 0
+	// Keep BloomFilterLength: whether the input recorded it is kept too.
+}
+
+// shiftOffsetIndex returns the offset index in b with every page moved by d
+// bytes.
+func shiftOffsetIndex(b []byte, d int64) ([]byte, error) {
+	var ix format.OffsetIndex
+	if err := thrift.Unmarshal(&thriftCompact, b, &ix); err != nil {
+		return nil, fmt.Errorf("offset index: %w", err)
+	}
+	for i := range ix.PageLocations {
+		ix.PageLocations[i].Offset += d
+	}
+	return thrift.Marshal(&thriftCompact, &ix)
+}
+
+// Close writes the page indexes and the footer, then commits the file.
+func (s *spliceSink) Close() error {
+	if s.closed {
+		return s.err
+	}
+	s.closed = true
+	if s.err == nil && s.rg != len(s.plan.meta.RowGroups) {
+		var got int64
+		for _, rg := range s.plan.meta.RowGroups[:s.rg] {
+			got += rg.NumRows
+		}
+		s.fail(fmt.Errorf("got %d rows for the %d of the input %s", got+s.rgRows, s.plan.meta.NumRows, s.plan.path))
+	}
+	if s.err == nil {
+		s.fail(s.finish())
+	}
+	if s.err != nil {
+		s.abort()
+		return s.err
+	}
+	s.in.Close()
+	if err := s.af.Commit(); err != nil {
+		return s.fail(err)
+	}
+	return nil
+}
+
+// finish writes what follows the row groups: bloom filters, column indexes,
+// offset indexes (in the order Parquet writers put them) and the footer.
+func (s *spliceSink) finish() error {
+	copyIn := func(r byteRange) (int64, error) {
+		at := s.pos
+		if err := s.af.CopyFrom(s.in, r.off, r.n); err != nil {
+			return 0, err
+		}
+		s.pos += r.n
+		return at, nil
+	}
+	write := func(b []byte) (int64, error) {
+		at := s.pos
+		if _, err := s.af.Write(b); err != nil {
+			return 0, err
+		}
+		s.pos += int64(len(b))
+		return at, nil
+	}
+	var err error
+	for i := range s.rowGroups {
+		cols := s.rowGroups[i].Columns
+		for j, b := range s.plan.blooms[i] {
+			if b.n > 0 {
+				if cols[j].MetaData.BloomFilterOffset, err = copyIn(b); err != nil {
+					return err
+				}
+			}
+		}
+	}
+	nIn := s.plan.leaves
+	for i := range s.rowGroups {
+		cols := s.rowGroups[i].Columns
+		src := s.plan.meta.RowGroups[i].Columns
+		for j := range src {
+			if n := src[j].ColumnIndexLength; n > 0 {
+				if cols[j].ColumnIndexOffset, err = copyIn(byteRange{src[j].ColumnIndexOffset, int64(n)}); err != nil {
+					return err
+				}
+				cols[j].ColumnIndexLength = n
+			}
+		}
+		for k, a := range s.added[i] {
+			if len(a.columnIndex) > 0 {
+				if cols[nIn+k].ColumnIndexOffset, err = write(a.columnIndex); err != nil {
+					return err
+				}
+				cols[nIn+k].ColumnIndexLength = int32(len(a.columnIndex))
+			}
+		}
+	}
+	buf := make([]byte, 0, 4096)
+	for i := range s.rowGroups {
+		cols := s.rowGroups[i].Columns
+		src := s.plan.meta.RowGroups[i].Columns
+		for j := range src {
+			n := src[j].OffsetIndexLength
+			if n <= 0 {
+				continue
+			}
+			buf = slices.Grow(buf[:0], int(n))[:n]
+			if _, err := s.in.ReadAt(buf, src[j].OffsetIndexOffset); err != nil {
+				return At(s.plan.path, fmt.Errorf("row group %d: offset index: %w", i, err))
+			}
+			b, err := shiftOffsetIndex(buf, s.shift[i][j])
+			if err != nil {
+				return At(s.plan.path, fmt.Errorf("row group %d column %v: %w", i, []string(src[j].MetaData.PathInSchema), err))
+			}
+			if cols[j].OffsetIndexOffset, err = write(b); err != nil {
+				return err
+			}
+			cols[j].OffsetIndexLength = int32(len(b))
+		}
+		for k, a := range s.added[i] {
+			if len(a.offsetIndex) > 0 {
+				if cols[nIn+k].OffsetIndexOffset, err = write(a.offsetIndex); err != nil {
+					return err
+				}
+				cols[nIn+k].OffsetIndexLength = int32(len(a.offsetIndex))
+			}
+		}
+	}
+	footer, err := thrift.Marshal(&thriftCompact, s.footer())
+	if err != nil {
+		return fmt.Errorf("footer: %w", err)
+	}
+	footer = binary.LittleEndian.AppendUint32(footer, uint32(len(footer)))
+	footer = append(footer, "PAR1"...)
+	_, err = write(footer)
+	return err
+}
+
+// footer is the input's footer with the appended leaves, the new row
+// groups and the output's key-value metadata.
+func (s *spliceSink) footer() *format.FileMetaData {
+	in := &s.plan.meta
+	schema := slices.Clone(in.Schema)
+	root := &schema[0]
+	n, _ := root.NumChildren.Get()
+	root.NumChildren.Set(n + int32(len(s.addSchema)))
+	schema = append(schema, s.addSchema...)
+	kv := make([]format.KeyValue, 0, s.opt.Metadata.Len()+1)
+	for i, k := range s.opt.Metadata.Keys() {
+		kv = append(kv, format.KeyValue{Key: k, Value: s.opt.Metadata.Values()[i]})
+	}
+	if s.arrowSchema != "" {
+		kv = append(kv, format.KeyValue{Key: arrowSchemaKey, Value: s.arrowSchema})
+	}
+	m := &format.FileMetaData{
+		Version: max(in.Version, s.version), Schema: schema, NumRows: in.NumRows,
+		RowGroups: s.rowGroups, KeyValueMetadata: kv, CreatedBy: in.CreatedBy,
+	}
+	if len(in.ColumnOrders) > 0 {
+		orders := slices.Clone(in.ColumnOrders)
+		for k := range s.addSchema {
+			if k < len(s.addOrders) {
+				orders = append(orders, s.addOrders[k])
+			} else {
+				orders = append(orders, format.ColumnOrder{Value: &format.TypeDefinedOrder{}})
+			}
+		}
+		m.ColumnOrders = orders
+	}
+	return m
+}
+
+// outputArrowSchema returns the ARROW:schema entry of the output: the
+// input's entry, when it has one, with the appended fields added, so that
+// Arrow readers restore the input's types as before. Without one in the
+// input the output has none either: readers derive every type from the
+// Parquet schema, as they did for the input.
+func (s *spliceSink) outputArrowSchema() string {
+	sc := s.plan.arrowSchema
+	if sc == nil {
+		return ""
+	}
+	fields := append(slices.Clone(sc.Fields()), s.schema.Fields()...)
+	out := arrow.NewSchema(fields, nil)
+	return base64.StdEncoding.EncodeToString(flight.SerializeSchema(out, s.opt.Alloc))
+}
+
+// Abort drops the output and leaves the target untouched.
+func (s *spliceSink) Abort() error {
+	if s.closed && s.err == nil {
+		return nil // committed
+	}
+	s.closed = true
+	if s.err == nil {
+		s.err = At(s.target, errors.New("aborted"))
+	}
+	return s.abort()
+}
+
+func (s *spliceSink) abort() error {
+	if s.w != nil {
+		s.w.Abort()
+		s.w = nil
+	}
+	if s.in != nil {
+		s.in.Close()
+	}
+	if s.af != nil {
+		return s.af.Abort()
+	}
+	return nil
+}
