@@ -134,12 +134,17 @@ func (p *SplicePlan) read(f *os.File) error {
 	if _, err := f.ReadAt(buf, footerAt); err != nil {
 		return err
 	}
-	if err := thrift.Unmarshal(&thriftCompact, buf, &p.meta); err != nil {
+	// A signed plaintext footer has its signature after the thrift bytes.
+	rd := thriftCompact.NewReaderFromBytes(buf)
+	if err := thrift.NewDecoder(rd).Decode(&p.meta); err != nil {
 		return fmt.Errorf("%w: footer: %v", ErrMalformed, err)
 	}
 	m := &p.meta
 	if m.EncryptionAlgorithm.Value != nil || len(m.FooterSigningKeyMetadata) > 0 {
 		return p.no("its columns are encrypted")
+	}
+	if n := len(buf) - rd.BytesRead(); n != 0 {
+		return fmt.Errorf("%w: footer: %d bytes after its end", ErrMalformed, n)
 	}
 	if len(m.Schema) == 0 {
 		return fmt.Errorf("%w: footer has no schema", ErrMalformed)
