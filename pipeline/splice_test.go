@@ -54,7 +54,17 @@ type spliceFixture struct {
 	pageIndex bool
 	bloom     bool // has a bloom filter on column "name"
 	flat      bool // heft's own sink can write its columns, for the re-encoding comparison
+	// renamed appends the columns under other names, for an input that has
+	// heft's names already.
+	renamed bool
 }
+
+// renamedSchema is appendedSchema under other names.
+var renamedSchema = arrow.NewSchema([]arrow.Field{
+	{Name: "propensity_2", Type: arrow.PrimitiveTypes.Float64},
+	{Name: "weight_2", Type: arrow.PrimitiveTypes.Float64, Nullable: true},
+	{Name: "in_support_2", Type: arrow.FixedWidthTypes.Boolean},
+}, nil)
 
 var nestedSchema = arrow.NewSchema([]arrow.Field{
 	{Name: "id", Type: arrow.PrimitiveTypes.Int64},
@@ -219,12 +229,24 @@ func spliceFixtures() []spliceFixture {
 			return 3000
 		}},
 		{name: "zero rows", flat: true, write: flatPq(0)},
+		// Written by DuckDB 1.5 (testdata/README.md has the command): another
+		// writer's layout, with DuckDB's own propensity and weight columns.
+		{name: "duckdb", flat: true, renamed: true, write: func(t *testing.T, path string) int64 {
+			b, err := os.ReadFile(filepath.Join("..", "testdata", "splice", "duckdb.parquet"))
+			if err != nil {
+				t.Fatal(err)
+			}
+			if err := os.WriteFile(path, b, 0o644); err != nil {
+				t.Fatal(err)
+			}
+			return 6000
+		}},
 	}
 }
 
 // splice writes the appended columns of rows rows to out from in, in
 // batches of 333 rows, which cross row group boundaries.
-func splice(t *testing.T, in, out string, rows int64) {
+func splice(t *testing.T, in, out string, rows int64, schema *arrow.Schema) {
 	t.Helper()
 	plan, err := PlanSplice(in)
 	if err != nil {
@@ -232,14 +254,16 @@ func splice(t *testing.T, in, out string, rows int64) {
 	}
 	mem := memory.NewCheckedAllocator(memory.NewGoAllocator())
 	defer mem.AssertSize(t, 0)
-	s, err := NewSpliceSink(out, plan, appendedSchema, SpliceOptions{
+	s, err := NewSpliceSink(out, plan, schema, SpliceOptions{
 		Metadata: arrow.NewMetadata([]string{"heft.test"}, []string{"yes"}), Alloc: mem,
 	})
 	if err != nil {
 		t.Fatal(err)
 	}
 	for start := int64(0); start < rows; start += 333 {
-		rec := appendedBatch(mem, start, min(333, rows-start))
+		app := appendedBatch(mem, start, min(333, rows-start))
+		rec := array.NewRecordBatch(schema, app.Columns(), app.NumRows())
+		app.Release()
 		err := s.Write(context.Background(), rec)
 		rec.Release()
 		if err != nil {
@@ -290,7 +314,11 @@ func TestSpliceFixtures(t *testing.T) {
 			in, out := filepath.Join(dir, "in.parquet"), filepath.Join(dir, "out.parquet")
 			rows := fx.write(t, in)
 			inBytes, _ := os.ReadFile(in)
-			splice(t, in, out, rows)
+			schema := appendedSchema
+			if fx.renamed {
+				schema = renamedSchema
+			}
+			splice(t, in, out, rows, schema)
 			outBytes, err := os.ReadFile(out)
 			if err != nil {
 				t.Fatal(err)
@@ -320,7 +348,7 @@ func TestSpliceFixtures(t *testing.T) {
 			defer want.Release()
 			for k := 0; k < 3; k++ {
 				got := tout.Column(nIn + k)
-				if got.Name() != appendedSchema.Field(k).Name {
+				if got.Name() != schema.Field(k).Name {
 					t.Fatalf("appended column %d is %q", k, got.Name())
 				}
 				wc := arrow.NewChunked(want.Column(k).DataType(), []arrow.Array{want.Column(k)})
@@ -358,14 +386,14 @@ func TestSpliceFixtures(t *testing.T) {
 			}
 
 			again := filepath.Join(dir, "again.parquet")
-			splice(t, in, again, rows)
+			splice(t, in, again, rows, schema)
 			if b, _ := os.ReadFile(again); !bytes.Equal(b, outBytes) {
 				t.Fatal("a second splice wrote different bytes")
 			}
 
 			if fx.flat {
 				re := filepath.Join(dir, "re.parquet")
-				reencode(t, tin, re)
+				reencode(t, tin, re, schema)
 				tre := readTable(t, re)
 				defer tre.Release()
 				for i := 0; i < int(tre.NumCols()); i++ {
@@ -418,9 +446,9 @@ func chunkBytes(b []byte, c *format.ColumnChunk) []byte {
 
 // reencode writes tin's columns and the appended ones with heft's own sink:
 // what the general path writes.
-func reencode(t *testing.T, tin arrow.Table, path string) {
+func reencode(t *testing.T, tin arrow.Table, path string, schema *arrow.Schema) {
 	t.Helper()
-	fields := append(tin.Schema().Fields(), appendedSchema.Fields()...)
+	fields := append(tin.Schema().Fields(), schema.Fields()...)
 	s, err := NewParquetSink(path, arrow.NewSchema(fields, nil), ParquetSinkOptions{})
 	if err != nil {
 		t.Fatal(err)
