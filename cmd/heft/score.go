@@ -47,6 +47,10 @@ mu0/mu1 with --predictions). OUT is a file, a directory (an existing one or a
 path ending in '/': one output file per input, partition folders kept, and a
 _SUCCESS marker written last), or '-' for an Arrow IPC stream on stdout.
 
+Parquet to Parquet, the input's column chunks are copied as bytes and only
+the model's columns decoded; --reencode (or --row-group-rows, or a
+--compression other than the input's) decodes and re-encodes every column.
+
 While it streams, mergeable accumulators compute effect estimates for every
 estimand, standard errors, balance, overlap and drift: --report writes the
 report, --state the partial state that 'heft merge' combines across
