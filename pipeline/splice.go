@@ -329,6 +329,9 @@ func shiftChunk(c *format.ColumnChunk, r byteRange, d int64) {
 // bytes.
 func shiftOffsetIndex(b []byte, d int64) ([]byte, error) {
 	var ix format.OffsetIndex
+	if err := checkThriftSizes(b); err != nil {
+		return nil, fmt.Errorf("offset index: %w", err)
+	}
 	if err := thrift.Unmarshal(&thriftCompact, b, &ix); err != nil {
 		return nil, fmt.Errorf("offset index: %w", err)
 	}

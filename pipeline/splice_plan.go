@@ -136,7 +136,11 @@ func (p *SplicePlan) read(f *os.File) error {
 	}
 	// A signed plaintext footer has its signature after the thrift bytes.
 	rd := thriftCompact.NewReaderFromBytes(buf)
-	if err := thrift.NewDecoder(rd).Decode(&p.meta); err != nil {
+	err = checkThriftSizes(buf)
+	if err == nil {
+		err = guard(p.path, func() error { return thrift.NewDecoder(rd).Decode(&p.meta) })
+	}
+	if err != nil {
 		return fmt.Errorf("%w: footer: %v", ErrMalformed, err)
 	}
 	m := &p.meta
@@ -273,7 +277,7 @@ func bloomRange(f *os.File, off int64, length int32, limit int64) (byteRange, er
 	}
 	var h format.BloomFilterHeader
 	rd := thriftCompact.NewReaderFromBytes(buf)
-	if err := thrift.NewDecoder(rd).Decode(&h); err != nil {
+	if err := thrift.NewDecoder(rd).Decode(&h); err != nil { // four integers: nothing to allocate
 		return byteRange{}, fmt.Errorf("header: %v", err)
 	}
 	r := byteRange{off, int64(rd.BytesRead()) + int64(h.NumBytes)}
@@ -339,7 +343,10 @@ func (w *pageWalker) header(pos, end int64) (int64, error) {
 		}
 		w.h = format.PageHeader{}
 		rd := thriftCompact.NewReaderFromBytes(b)
-		err := thrift.NewDecoder(rd).Decode(&w.h)
+		err := checkThriftSizes(b)
+		if err == nil {
+			err = guard(w.f.Name(), func() error { return thrift.NewDecoder(rd).Decode(&w.h) })
+		}
 		if err == nil {
 			return int64(rd.BytesRead()), nil
 		}

@@ -5,8 +5,10 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -750,4 +752,144 @@ func TestPlanSpliceRefuses(t *testing.T) {
 func footerBytes(b []byte) []byte {
 	n := int(b[len(b)-8]) | int(b[len(b)-7])<<8 | int(b[len(b)-6])<<16 | int(b[len(b)-5])<<24
 	return b[len(b)-8-n : len(b)-8]
+}
+
+// TestThriftSizeCheck: container and binary sizes that claim more than the
+// bytes left are refused before parquet-go's decoder would allocate them.
+func TestThriftSizeCheck(t *testing.T) {
+	dir := t.TempDir()
+	good := filepath.Join(dir, "good.parquet")
+	writeWithPqarrow(t, good, sinkSchema, testBatch, 100)
+	b, _ := os.ReadFile(good)
+	footer := footerBytes(b)
+	if err := checkThriftSizes(footer); err != nil {
+		t.Fatalf("a good footer: %v", err)
+	}
+	cases := []struct {
+		name string
+		b    []byte
+	}{
+		// Field 1 (i32 version = 1), then field 2, a list of structs whose
+		// varint size is 2^31-1.
+		{"huge list", []byte{0x15, 0x02, 0x19, 0xfc, 0xff, 0xff, 0xff, 0xff, 0x07, 0x00}},
+		{"huge binary", []byte{0x18, 0xff, 0xff, 0xff, 0xff, 0x0f, 'a', 0x00}},
+		{"huge map", []byte{0x1b, 0xff, 0xff, 0xff, 0xff, 0x07, 0x88, 0x00}},
+		{"deep", bytes.Repeat([]byte{0x1c}, 100)},
+		{"truncated", footer[:len(footer)/2]},
+		{"unknown type", []byte{0x1e, 0x00}},
+	}
+	for _, c := range cases {
+		if err := checkThriftSizes(c.b); err == nil {
+			t.Errorf("%s: accepted", c.name)
+		}
+	}
+}
+
+// FuzzPlanSplice: go test ./pipeline -run '^$' -fuzz FuzzPlanSplice -fuzztime 60s
+// A damaged file must give an error, never a panic, a hang or a huge
+// allocation; one that still plans must splice without panicking.
+func FuzzPlanSplice(f *testing.F) {
+	path := filepath.Join(f.TempDir(), "seed.parquet")
+	s, err := NewParquetSink(path, sinkSchema, ParquetSinkOptions{RowGroupRows: 20, PageIndex: true})
+	if err != nil {
+		f.Fatal(err)
+	}
+	rec := testBatch(memory.DefaultAllocator, 0, 50)
+	if err := s.Write(context.Background(), rec); err != nil {
+		f.Fatal(err)
+	}
+	rec.Release()
+	if err := s.Close(); err != nil {
+		f.Fatal(err)
+	}
+	seed, err := os.ReadFile(path)
+	if err != nil {
+		f.Fatal(err)
+	}
+	f.Add(seed)
+	f.Add(footerBytes(seed))
+	f.Fuzz(func(t *testing.T, data []byte) {
+		dir := t.TempDir()
+		in := filepath.Join(dir, "in.parquet")
+		if err := os.WriteFile(in, data, 0o644); err != nil {
+			t.Fatal(err)
+		}
+		checkThriftSizes(data)
+		if err := spliceAny(in, filepath.Join(dir, "out.parquet")); err != nil {
+			t.Fatal(err)
+		}
+	})
+}
+
+// TestSpliceDamagedFiles plans and splices 400 copies of a small file, each
+// with a few random bytes overwritten (seeded, so a failure repeats): every
+// one gives an error or a spliced file, none a panic or a hang. The fuzz
+// target explores further.
+func TestSpliceDamagedFiles(t *testing.T) {
+	dir := t.TempDir()
+	seedPath := filepath.Join(dir, "seed.parquet")
+	writeWithPqarrow(t, seedPath, sinkSchema, testBatch, 60, parquet.WithMaxRowGroupLength(20), parquet.WithPageIndexEnabled(true))
+	seed, err := os.ReadFile(seedPath)
+	if err != nil {
+		t.Fatal(err)
+	}
+	r := rand.New(rand.NewPCG(20261202, 1))
+	for i := range 400 {
+		data := slices.Clone(seed)
+		for range 1 + r.IntN(4) {
+			data[r.IntN(len(data))] = byte(r.IntN(256))
+		}
+		in := filepath.Join(dir, fmt.Sprintf("in%d.parquet", i))
+		if err := os.WriteFile(in, data, 0o644); err != nil {
+			t.Fatal(err)
+		}
+		done := make(chan error, 1)
+		go func() { done <- spliceAny(in, filepath.Join(dir, fmt.Sprintf("out%d.parquet", i))) }()
+		select {
+		case err := <-done:
+			if err != nil {
+				t.Fatalf("damaged copy %d: %v", i, err)
+			}
+		case <-time.After(20 * time.Second):
+			t.Fatalf("damaged copy %d: no answer in 20 s", i)
+		}
+	}
+}
+
+// spliceAny plans in and, when it plans, splices it; it returns an error
+// only for a result that is neither a proper error nor a file.
+func spliceAny(in, out string) (err error) {
+	defer func() {
+		if r := recover(); r != nil {
+			err = fmt.Errorf("panic: %v", r)
+		}
+	}()
+	plan, err := PlanSplice(in)
+	if err != nil {
+		var ns *NoSpliceError
+		var pe *Error
+		if !errors.As(err, &ns) && !errors.As(err, &pe) {
+			return fmt.Errorf("got %v (%T), want a NoSpliceError or an *Error", err, err)
+		}
+		return nil
+	}
+	var rows int64
+	for _, n := range plan.RowGroupRows() {
+		rows += n
+	}
+	if rows > 1<<16 {
+		return nil
+	}
+	sink, err := NewSpliceSink(out, plan, appendedSchema, SpliceOptions{})
+	if err != nil {
+		return nil
+	}
+	app := appendedBatch(memory.DefaultAllocator, 0, rows)
+	defer app.Release()
+	if err := sink.Write(context.Background(), app); err != nil {
+		sink.Abort()
+		return nil
+	}
+	sink.Close()
+	return nil
 }
