@@ -97,6 +97,7 @@ type parquetSink struct {
 	dict     string
 	pqSchema *pqschema.Schema
 	kv       metadata.KeyValueMetadata
+	tail     *footerTail  // between fw and w
 	fw       *file.Writer // nil until the first batch
 	rgw      file.BufferedRowGroupWriter
 	rgRows   int64 // rows in rgw so far
@@ -215,7 +216,8 @@ func (s *parquetSink) start(first arrow.RecordBatch) error {
 			}
 		}
 	}
-	fw, err := file.NewParquetWriterWithError(s.w, s.pqSchema.Root(), file.WithWriterProps(parquet.NewWriterProperties(props...)), file.WithWriteMetadata(s.kv))
+	s.tail = &footerTail{w: s.w}
+	fw, err := file.NewParquetWriterWithError(s.tail, s.pqSchema.Root(), file.WithWriterProps(parquet.NewWriterProperties(props...)), file.WithWriteMetadata(s.kv))
 	if err != nil {
 		return s.fail(-1, "", fmt.Errorf("start file: %w", err))
 	}
@@ -701,7 +703,10 @@ func (s *parquetSink) Close() error {
 		s.closeRowGroup()
 	}
 	if s.err == nil {
+		s.tail.capture = true
 		if err := s.fw.Close(); err != nil {
+			s.fail(-1, "", err)
+		} else if err := s.tail.flush(); err != nil {
 			s.fail(-1, "", err)
 		}
 	} else if s.fw != nil {
