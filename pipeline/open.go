@@ -30,6 +30,13 @@ type SourceOptions struct {
 	Stdin            io.Reader                 // used for Path "-"; nil = os.Stdin
 	CSVTypes         map[string]arrow.DataType // type overrides for CSV columns; others are inferred
 
+	// DictionaryColumns names Parquet string columns to read as Arrow
+	// dictionary arrays: the page's dictionary is decoded once and rows come
+	// as indices into it, which spares a consumer that maps each level to
+	// something (the encoder) a string per row. The schema shows them as
+	// dictionary<values=utf8, indices=int32>. Other formats ignore it.
+	DictionaryColumns []string
+
 	// readDict reads Parquet BYTE_ARRAY columns as dictionaries. Only the
 	// benchmark sets it, to compare with plain utf8 (see parquet_source.go).
 	readDict bool

@@ -286,3 +286,39 @@ func TestOpenWithoutFormat(t *testing.T) {
 		src.Close()
 	}
 }
+
+// DictionaryColumns reads the named Parquet string columns as dictionary
+// arrays holding the same values; other columns keep their types.
+func TestOpenDictionaryColumns(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "p.parquet")
+	rec := sampleRecord(memory.NewGoAllocator(), 0, 50)
+	defer rec.Release()
+	writeParquet(t, path, sampleSchema, 20, rec)
+	mem := memory.NewCheckedAllocator(memory.NewGoAllocator())
+	defer mem.AssertSize(t, 0)
+	src, err := Open(context.Background(), Input{Path: path, Format: FormatParquet}, SourceOptions{Alloc: mem, DictionaryColumns: []string{"s"}, Columns: []string{"s", "i32"}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer src.Close()
+	si := src.Schema().FieldIndices("s")[0]
+	if id := src.Schema().Field(si).Type.ID(); id != arrow.DICTIONARY {
+		t.Fatalf("s is %v, want a dictionary", src.Schema().Field(si).Type)
+	}
+	var row int64
+	for src.Next(context.Background()) {
+		b := src.RecordBatch()
+		d := b.Column(si).(*array.Dictionary)
+		want := rec.Column(rec.Schema().FieldIndices("s")[0]).(*array.String)
+		for i := 0; i < d.Len(); i++ {
+			r := int(row) + i
+			if d.IsNull(i) != want.IsNull(r) || !d.IsNull(i) && d.Dictionary().(*array.String).Value(d.GetValueIndex(i)) != want.Value(r) {
+				t.Fatalf("row %d: dictionary value differs from the written string", r)
+			}
+		}
+		row += b.NumRows()
+	}
+	if err := src.Err(); err != nil || row != 50 {
+		t.Fatalf("read %d rows: %v", row, err)
+	}
+}

@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"os"
 	"runtime"
+	"slices"
 	"sync"
 
 	"github.com/apache/arrow-go/v18/arrow"
@@ -69,12 +70,11 @@ func openParquet(path string, p *projection, opt SourceOptions) (Source, error) 
 			}
 		}
 		arrProps := pqarrow.ArrowReadProperties{BatchSize: s.batch}
-		if opt.readDict {
-			sc := pf.MetaData().Schema
-			for i := range sc.NumColumns() {
-				if sc.Column(i).PhysicalType() == parquet.Types.ByteArray {
-					arrProps.SetReadDict(i, true)
-				}
+		sc := pf.MetaData().Schema
+		for i := range sc.NumColumns() {
+			c := sc.Column(i)
+			if c.PhysicalType() == parquet.Types.ByteArray && (opt.readDict || slices.Contains(opt.DictionaryColumns, c.ColumnPath().String())) {
+				arrProps.SetReadDict(i, true)
 			}
 		}
 		s.fr, err = pqarrow.NewFileReader(pf, arrProps, s.mem)

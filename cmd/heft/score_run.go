@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"path/filepath"
+	"slices"
 	"strings"
 
 	"github.com/apache/arrow-go/v18/arrow"
@@ -100,6 +101,7 @@ func (r *scoreRun) open(ctx context.Context, in pipeline.Input, opt pipeline.Sou
 	}
 	src.Close()
 	opt.Columns = r.modelColumns(schema)
+	opt.DictionaryColumns = r.levelColumns(schema)
 	if src, err = pipeline.Open(ctx, in, opt); err != nil {
 		return input{}, err
 	}
@@ -125,6 +127,28 @@ func (r *scoreRun) modelColumns(schema *arrow.Schema) []string {
 		if !seen[c] {
 			seen[c] = true
 			out = append(out, c)
+		}
+	}
+	return out
+}
+
+// levelColumns names the string covariates that only the encoder reads
+// (not the treatment, the outcome or a --by column): read as dictionaries,
+// each page's levels are looked up once instead of once per row. Their
+// output bytes are copied, so the type they are read as is not written.
+func (r *scoreRun) levelColumns(schema *arrow.Schema) []string {
+	e := &r.m.Encoding
+	other := append([]string{e.Treatment.Column}, splitList(r.f.by)...)
+	if e.Outcome != nil {
+		other = append(other, e.Outcome.Column)
+	}
+	var out []string
+	for _, c := range e.Columns {
+		if c.Kind != fit.KindCategorical || slices.Contains(other, c.Name) {
+			continue
+		}
+		if i := schema.FieldIndices(c.Name); len(i) == 1 && schema.Field(i[0]).Type.ID() == arrow.STRING {
+			out = append(out, c.Name)
 		}
 	}
 	return out
