@@ -3,7 +3,9 @@
 # accumulators"), side by side in one run, whole-process wall time and peak
 # RSS from GNU time, alternating runs:
 #   floor    plain read + write of the same file with the same Parquet library
-#   heft     heft score (ATE weights, snappy Parquet out)
+#   heft     heft score (ATE weights, snappy Parquet out; copies the column
+#            chunks the model does not read)
+#   heft re  heft score --reencode (decodes and re-encodes every column)
 #   heft+acc heft score with --state and --report (the accumulators)
 #   duckdb   the peer: DuckDB COPY with heft's coefficients, 2 threads
 # then peak RSS of heft score at 1M and 10M rows.
@@ -28,6 +30,7 @@ $H fit -q -o "$dir/model.json" --treatment audit --covariates $covs --outcome ne
 $H inspect --json "$dir/model.json" > "$dir/coef.json"
 args=(--name "floor: plain copy" -- ".bench/heftbench copy -in $in -out $dir/floor.parquet"
       --name "heft score" -- "$H score -q --model $dir/model.json -o $dir/heft.parquet $in"
+      --name "heft score --reencode" -- "$H score -q --reencode --model $dir/model.json -o $dir/heftre.parquet $in"
       --name "heft score --state" -- "$H score -q --model $dir/model.json -o $dir/heftacc.parquet --state $dir/state.json --report $dir/report.json $in")
 if [ -x .bench/duckpeer ]; then
   args+=(--name "duckdb COPY, 2 threads" -- ".bench/duckpeer -mode copy -coef $dir/coef.json -treatment audit -estimand ate -threads 2 -in $in -out $dir/peer.parquet")
