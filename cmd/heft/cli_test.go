@@ -334,3 +334,14 @@ func TestInterrupt(t *testing.T) {
 		t.Fatalf("temporary files left: %v", left)
 	}
 }
+
+func TestScoreMemoryLimit(t *testing.T) {
+	for _, c := range []struct {
+		cols int
+		want int64
+	}{{0, memoryLimit}, {10, memoryLimit}, {38, memoryLimit}, {101, 101 * memoryLimitPerColumn}} {
+		if got := scoreMemoryLimit(c.cols); got != c.want {
+			t.Errorf("%d columns: limit %d, want %d", c.cols, got, c.want)
+		}
+	}
+}
