@@ -35,7 +35,7 @@ args=(--name "floor: plain copy" -- ".bench/heftbench copy -in $in -out $dir/flo
 if [ -x .bench/duckpeer ]; then
   args+=(--name "duckdb COPY, 2 threads" -- ".bench/duckpeer -mode copy -coef $dir/coef.json -treatment audit -estimand ate -threads 2 -in $in -out $dir/peer.parquet")
 fi
-/usr/bin/python3 cmd/heftbench/sidebyside.py -n "$runs" "${args[@]}"
+/usr/bin/python3 cmd/heftbench/sidebyside.py -n "$runs" --rows "$rows" "${args[@]}"
 
 echo
 echo "peak RSS of heft score by table size:"

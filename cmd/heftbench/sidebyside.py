@@ -31,6 +31,7 @@ def main():
     ap = argparse.ArgumentParser()
     ap.add_argument("-n", type=int, default=5)
     ap.add_argument("--warmup", type=int, default=1)
+    ap.add_argument("--rows", type=int, default=0, help="rows each command processes: adds a rows/s column")
     a = ap.parse_args(argv[:first])
     names, cmds = [], []
     it = iter(argv[first:])
@@ -51,12 +52,17 @@ def main():
             w, r = run_once(c)
             walls[i].append(w)
             rsss[i].append(r)
-    print("%-28s %10s %10s %10s %12s %16s" % ("command", "median s", "min s", "max s", "peak RSS MiB", "ratio to first"))
+    head = "%-28s %10s %10s %10s %12s %16s" % ("command", "median s", "min s", "max s", "peak RSS MiB", "ratio to first")
+    print(head + ("  %12s" % "rows/s" if a.rows else ""))
     for i, n in enumerate(names):
         ratios = [walls[i][k] / walls[0][k] for k in range(a.n)]
-        print("%-28s %10.3f %10.3f %10.3f %12.1f %16.3f" % (
-            n, statistics.median(walls[i]), min(walls[i]), max(walls[i]),
-            statistics.median(rsss[i]) / 2**20, statistics.median(ratios)))
+        med = statistics.median(walls[i])
+        line = "%-28s %10.3f %10.3f %10.3f %12.1f %16.3f" % (
+            n, med, min(walls[i]), max(walls[i]),
+            statistics.median(rsss[i]) / 2**20, statistics.median(ratios))
+        if a.rows:
+            line += "  %12.0f" % (a.rows / med if med > 0 else float("inf"))
+        print(line)
 
 
 if __name__ == "__main__":
