@@ -345,3 +345,14 @@ func TestScoreMemoryLimit(t *testing.T) {
 		}
 	}
 }
+
+func TestBatchRowsFor(t *testing.T) {
+	for _, c := range []struct{ cols, flag, want int }{
+		{10, 65536, 65536}, {16, 65536, 65536}, {21, 65536, 49152}, {101, 65536, 10240},
+		{1000, 65536, minBatchRows}, {101, 5000, 5000},
+	} {
+		if got := batchRowsFor(c.cols, c.flag); got != c.want {
+			t.Errorf("%d columns, --batch-rows %d: %d, want %d", c.cols, c.flag, got, c.want)
+		}
+	}
+}

@@ -96,12 +96,18 @@ func (r *scoreRun) open(ctx context.Context, in pipeline.Input, opt pipeline.Sou
 		keep -= len(ps.PartitionColumns())
 	}
 	file := arrow.NewSchema(schema.Fields()[:keep], nil)
-	if plan == nil {
+	read := schema.NumFields()
+	if plan != nil {
+		opt.Columns = r.modelColumns(schema)
+		opt.DictionaryColumns = r.levelColumns(schema)
+		read = len(opt.Columns)
+	}
+	if b := batchRowsFor(read, r.f.batchRows); !r.f.batchSet && b != opt.BatchRows {
+		opt.BatchRows = b
+	} else if plan == nil {
 		return input{src: src, file: file}, nil
 	}
 	src.Close()
-	opt.Columns = r.modelColumns(schema)
-	opt.DictionaryColumns = r.levelColumns(schema)
 	if src, err = pipeline.Open(ctx, in, opt); err != nil {
 		return input{}, err
 	}
