@@ -38,10 +38,18 @@ fi
 /usr/bin/python3 cmd/heftbench/sidebyside.py -n "$runs" --rows "$rows" "${args[@]}"
 
 echo
-echo "peak RSS of heft score by table size:"
+echo "peak RSS of heft score by table size (median of 5 runs; one run's peak varies by several MiB):"
+# medianrss LABEL CMD...: runs CMD 5 times under GNU time, prints the medians.
+medianrss() {
+  local label=$1; shift
+  local f; f=$(mktemp)
+  for _ in 1 2 3 4 5; do /usr/bin/time -a -o "$f" -f "%e %M" "$@" >/dev/null; done
+  sort -k2 -n "$f" | awk -v l="$label" 'NR==3 {printf "  %s: %d KiB peak RSS, the median of 5 (that run %.2f s)\n", l, $2, $1}'
+  rm -f "$f"
+}
 for n in 1000000 10000000; do
   [ -f "$dir/t$n/demo.parquet" ] || $H demo -q --data-only --rows "$n" --dir "$dir/t$n"
-  /usr/bin/time -f "  $n rows: %e s, %M KiB peak RSS" $H score -q --model "$dir/model.json" -o "$dir/rss.parquet" "$dir/t$n/demo.parquet"
-  /usr/bin/time -f "  $n rows with --state: %e s, %M KiB peak RSS" $H score -q --model "$dir/model.json" --report-only --state "$dir/state$n.json" "$dir/t$n/demo.parquet"
+  medianrss "$n rows" $H score -q --model "$dir/model.json" -o "$dir/rss.parquet" "$dir/t$n/demo.parquet"
+  medianrss "$n rows with --state" $H score -q --model "$dir/model.json" --report-only --state "$dir/state$n.json" "$dir/t$n/demo.parquet"
   echo "  state file at $n rows: $(stat -c %s "$dir/state$n.json") bytes"
 done
