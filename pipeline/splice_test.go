@@ -383,6 +383,9 @@ func TestSpliceFixtures(t *testing.T) {
 			}
 
 			checkWithParquetGo(t, in, out, fx.pageIndex)
+			if fx.pageIndex {
+				checkSeekWithArrow(t, in, out, rows)
+			}
 			if fx.bloom {
 				checkBloom(t, out, mout)
 			}
@@ -580,6 +583,78 @@ func checkWithParquetGo(t *testing.T, in, out string, pageIndex bool) {
 				}
 			}
 		}
+	}
+}
+
+// checkSeekWithArrow seeks with arrow-go's column readers, which use the
+// offset index when there is one, to a row two thirds into every row group
+// of the output, in the first input column (an int64 in every page-index
+// fixture) and in the appended propensity, and compares what it reads
+// with the input and with the values appended.
+func checkSeekWithArrow(t *testing.T, in, out string, rows int64) {
+	t.Helper()
+	open := func(path string) *file.Reader {
+		pf, err := file.OpenParquetFile(path, false)
+		if err != nil {
+			t.Fatal(err)
+		}
+		t.Cleanup(func() { pf.Close() })
+		return pf
+	}
+	pin, pout := open(in), open(out)
+	if pout.GetPageIndexReader() == nil {
+		t.Fatal("arrow-go finds no page index in the output")
+	}
+	nIn := pin.MetaData().Schema.NumColumns()
+	read1 := func(pf *file.Reader, rg, col int, row int64) any {
+		cr, err := pf.RowGroup(rg).Column(col)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := cr.SeekToRow(row); err != nil {
+			t.Fatalf("row group %d column %d: seek to row %d: %v", rg, col, row, err)
+		}
+		def := make([]int16, 1)
+		switch r := cr.(type) {
+		case *file.Int64ColumnChunkReader:
+			v := make([]int64, 1)
+			if _, n, err := r.ReadBatch(1, v, def, nil); err != nil || n != 1 {
+				t.Fatalf("row group %d column %d: read after seek: %d values, %v", rg, col, n, err)
+			}
+			return v[0]
+		case *file.Float64ColumnChunkReader:
+			v := make([]float64, 1)
+			if _, n, err := r.ReadBatch(1, v, def, nil); err != nil || n != 1 {
+				t.Fatalf("row group %d column %d: read after seek: %d values, %v", rg, col, n, err)
+			}
+			return v[0]
+		}
+		t.Fatalf("row group %d column %d: a %T, not int64 or float64", rg, col, cr)
+		return nil
+	}
+	var base int64
+	for i := 0; i < pout.NumRowGroups(); i++ {
+		rgi, err := pout.GetPageIndexReader().RowGroup(i)
+		if err != nil || rgi == nil {
+			t.Fatalf("row group %d: arrow-go reads no page index: %v", i, err)
+		}
+		for _, col := range []int{0, nIn} {
+			if oi, err := rgi.GetOffsetIndex(col); err != nil || oi == nil || len(oi.GetPageLocations()) == 0 {
+				t.Fatalf("row group %d column %d: arrow-go reads no offset index: %v", i, col, err)
+			}
+		}
+		n := pout.MetaData().RowGroups[i].NumRows
+		k := n * 2 / 3
+		if got, want := read1(pout, i, 0, k), read1(pin, i, 0, k); got != want {
+			t.Fatalf("row group %d row %d: input column 0 reads %v after seeking, the input %v", i, k, got, want)
+		}
+		if got, want := read1(pout, i, nIn, k), float64((base+k)%97+1)/99; got != want {
+			t.Fatalf("row group %d row %d: propensity reads %v after seeking, want %v", i, k, got, want)
+		}
+		base += n
+	}
+	if base != rows {
+		t.Fatalf("row groups hold %d rows, want %d", base, rows)
 	}
 }
 
