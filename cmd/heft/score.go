@@ -355,8 +355,19 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 			return err
 		}
 	default:
-		if schema0 != nil && !f.batchSet {
-			opt.BatchRows = batchRowsFor(schema0.NumFields(), f.batchRows)
+		read := 0
+		if schema0 != nil {
+			read = schema0.NumFields()
+			if mode == outNone {
+				// No table is written: read what the model and the
+				// accumulators use, string covariates as dictionaries.
+				opt.Columns = run.modelColumns(schema0)
+				opt.DictionaryColumns = run.levelColumns(schema0)
+				read = len(opt.Columns)
+			}
+		}
+		if read > 0 && !f.batchSet {
+			opt.BatchRows = batchRowsFor(read, f.batchRows)
 		}
 		src, err := pipeline.Concat(ctx, ins, opt)
 		if err != nil {
