@@ -73,6 +73,12 @@ func TestScoreSpliceEqualsReencode(t *testing.T) {
 	sameTables(t, "spliced against re-encoded", a, b)
 	compareNumbers(t, "estimates", readReport(t, filepath.Join(dir, "rs.json"))["estimates"], readReport(t, filepath.Join(dir, "rr.json"))["estimates"], 0)
 
+	// --report-only reads only the model's columns; its report is the same.
+	mustHeft(t, "score", "-q", "--model", model, "--predictions", "--trim", "0.02", "--stabilize", "--report-only", "--report", filepath.Join(dir, "ro.json"), paths[0])
+	for _, sec := range []string{"estimates", "ess", "sum_weights", "balance", "overlap", "drift"} {
+		compareNumbers(t, sec, readReport(t, filepath.Join(dir, "rs.json"))[sec], readReport(t, filepath.Join(dir, "ro.json"))[sec], 1e-12)
+	}
+
 	in, out := readParquetMeta(t, paths[0]), readParquetMeta(t, spliced)
 	if in.NumRowGroups() != out.NumRowGroups() {
 		t.Fatalf("spliced output has %d row groups, the input %d", out.NumRowGroups(), in.NumRowGroups())
