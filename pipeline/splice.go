@@ -7,6 +7,7 @@ import (
 	"encoding/binary"
 	"errors"
 	"fmt"
+	"math"
 	"os"
 	"slices"
 
@@ -256,7 +257,10 @@ func (s *spliceSink) finishRowGroup() error {
 	out := format.RowGroup{
 		Columns:       make([]format.ColumnChunk, 0, len(in.Columns)+len(s.addSchema)),
 		TotalByteSize: in.TotalByteSize, NumRows: in.NumRows, SortingColumns: in.SortingColumns,
-		FileOffset: start, Ordinal: int16(s.rg),
+		FileOffset: start, Ordinal: in.Ordinal,
+	}
+	if s.rg <= math.MaxInt16 {
+		out.Ordinal = int16(s.rg) // what the ordinal means; writers that leave it out decode as 0
 	}
 	for j, c := range in.Columns {
 		shiftChunk(&c, ranges[j], shifts[j])
