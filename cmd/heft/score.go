@@ -80,7 +80,7 @@ with code 7 after writing its outputs when the weights fail it.`,
 	fl.StringVar(&f.cols.InSupport, "in-support-column", f.cols.InSupport, "name of the appended in-support column")
 	fl.StringVar(&f.cols.Mu0, "mu0-column", f.cols.Mu0, "name of the appended control-outcome prediction")
 	fl.StringVar(&f.cols.Mu1, "mu1-column", f.cols.Mu1, "name of the appended treated-outcome prediction")
-	fl.StringVar(&f.compression, "compression", "snappy", "Parquet compression: snappy, zstd or none (default when splicing: the input's)")
+	fl.StringVar(&f.compression, "compression", "snappy", "Parquet compression: snappy, zstd or none (when column chunks are copied and this is not given, the appended columns take the input's codec)")
 	fl.Int64Var(&f.rowGroupRows, "row-group-rows", 131072, "rows per Parquet row group in the output (re-encodes every column)")
 	fl.BoolVar(&f.reencode, "reencode", false, "decode and re-encode every column rather than copy the input's column chunks")
 	fl.IntVar(&f.batchRows, "batch-rows", 65536, "rows per batch in flight (memory is bounded by batch size × queue depth); by default fewer for inputs of more than 16 columns read")
