@@ -7,9 +7,6 @@ import (
 	"fmt"
 	"io"
 	"slices"
-
-	"github.com/parquet-go/parquet-go/encoding/thrift"
-	"github.com/parquet-go/parquet-go/format"
 )
 
 // footerTail stands between arrow-go's file writer and the output. Until
@@ -48,9 +45,9 @@ func (t *footerTail) flush() error {
 
 // canonicalFooter returns tail, the end of a Parquet file that holds its
 // whole footer, with every column chunk's page encoding statistics sorted
-// by page type and encoding. A footer whose order cannot vary (no chunk
-// has two statistics of one page type) is returned as it is; otherwise the
-// footer is re-encoded, so the choice depends only on the file's content.
+// by page type and encoding. Only those lists are reordered; every other
+// byte of the footer is kept (see thrift_raw.go), and a footer that is
+// already in order comes back as it was.
 func canonicalFooter(tail []byte) ([]byte, error) {
 	if len(tail) < 8 || string(tail[len(tail)-4:]) != "PAR1" {
 		return nil, fmt.Errorf("footer: the writer did not end the file with PAR1")
@@ -60,43 +57,100 @@ func canonicalFooter(tail []byte) ([]byte, error) {
 		return nil, fmt.Errorf("footer: %d bytes long, more than the %d written at close", n, len(tail)-8)
 	}
 	start := len(tail) - 8 - n
-	var m format.FileMetaData
-	if err := checkThriftSizes(tail[start : start+n]); err != nil {
+	b := tail[start : start+n]
+	if err := checkThriftSizes(b); err != nil {
 		return nil, fmt.Errorf("footer: %w", err)
 	}
-	if err := thrift.Unmarshal(&thriftCompact, tail[start:start+n], &m); err != nil {
-		return nil, fmt.Errorf("footer: %w", err)
+	changed := false
+	// FileMetaData 4 row_groups → RowGroup 1 columns → ColumnChunk 3
+	// meta_data → ColumnMetaData 13 encoding_stats (parquet.thrift).
+	listOf := func(w *rawWriter, f rawField, each func(pos int) ([]byte, error)) error {
+		et, els, err := rawList(b, f.start)
+		if err != nil {
+			return err
+		}
+		out := make([][]byte, len(els))
+		for i, e := range els {
+			if out[i], err = each(e[0]); err != nil {
+				return err
+			}
+		}
+		w.list(f.id, et, out)
+		return nil
 	}
-	if !sortEncodingStats(&m) {
-		return tail, nil
+	into := func(id int16, inner func(w *rawWriter, f rawField) (bool, error)) func(w *rawWriter, f rawField) (bool, error) {
+		return func(w *rawWriter, f rawField) (bool, error) {
+			if f.id != id {
+				return false, nil
+			}
+			return inner(w, f)
+		}
 	}
-	footer, err := thrift.Marshal(&thriftCompact, &m)
+	sortStats := func(w *rawWriter, f rawField) (bool, error) {
+		et, els, err := rawList(b, f.start)
+		if err != nil {
+			return false, err
+		}
+		type stat struct {
+			pageType, encoding int64
+			bytes              []byte
+		}
+		st := make([]stat, len(els))
+		for i, e := range els {
+			fields, _, err := rawStruct(b, e[0])
+			if err != nil {
+				return false, err
+			}
+			st[i].bytes = b[e[0]:e[1]]
+			if f, ok := fieldOf(fields, 1); ok {
+				st[i].pageType, _ = rawI64(b, f)
+			}
+			if f, ok := fieldOf(fields, 2); ok {
+				st[i].encoding, _ = rawI64(b, f)
+			}
+		}
+		sorted := slices.IsSortedFunc(st, func(x, y stat) int {
+			return cmp.Or(cmp.Compare(x.pageType, y.pageType), cmp.Compare(x.encoding, y.encoding))
+		})
+		if sorted {
+			return false, nil
+		}
+		changed = true
+		slices.SortStableFunc(st, func(x, y stat) int {
+			return cmp.Or(cmp.Compare(x.pageType, y.pageType), cmp.Compare(x.encoding, y.encoding))
+		})
+		out := make([][]byte, len(st))
+		for i := range st {
+			out[i] = st[i].bytes
+		}
+		w.list(f.id, et, out)
+		return true, nil
+	}
+	chunk := func(pos int) ([]byte, error) {
+		return rewriteStruct(b, pos, into(3, func(w *rawWriter, f rawField) (bool, error) {
+			v, err := rewriteStruct(b, f.start, into(13, sortStats), nil)
+			if err != nil {
+				return false, err
+			}
+			w.raw(f.id, f.typ, v)
+			return true, nil
+		}), nil)
+	}
+	rowGroup := func(pos int) ([]byte, error) {
+		return rewriteStruct(b, pos, into(1, func(w *rawWriter, f rawField) (bool, error) {
+			return true, listOf(w, f, chunk)
+		}), nil)
+	}
+	footer, err := rewriteStruct(b, 0, into(4, func(w *rawWriter, f rawField) (bool, error) {
+		return true, listOf(w, f, rowGroup)
+	}), nil)
 	if err != nil {
 		return nil, fmt.Errorf("footer: %w", err)
+	}
+	if !changed {
+		return tail, nil
 	}
 	out := append(slices.Clone(tail[:start]), footer...)
 	out = binary.LittleEndian.AppendUint32(out, uint32(len(footer)))
 	return append(out, "PAR1"...), nil
-}
-
-// sortEncodingStats sorts every chunk's page encoding statistics and
-// reports whether any chunk's order could have varied.
-func sortEncodingStats(m *format.FileMetaData) bool {
-	varied := false
-	for i := range m.RowGroups {
-		for j := range m.RowGroups[i].Columns {
-			st := m.RowGroups[i].Columns[j].MetaData.EncodingStats
-			for a := range st {
-				for b := a + 1; b < len(st); b++ {
-					if st[a].PageType == st[b].PageType {
-						varied = true
-					}
-				}
-			}
-			slices.SortFunc(st, func(x, y format.PageEncodingStats) int {
-				return cmp.Or(cmp.Compare(x.PageType, y.PageType), cmp.Compare(x.Encoding, y.Encoding))
-			})
-		}
-	}
-	return varied
 }

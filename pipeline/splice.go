@@ -44,8 +44,10 @@ type SpliceOptions struct {
 // when Close returns nil (see CreateAtomic). Memory is one row group's
 // appended columns, encoded, plus the Parquet sink's buffers.
 //
-// The footer is rewritten with parquet-go's thrift structures, so a footer
-// field they do not know is dropped (readers ignore such fields anyway).
+// The footer's input structs (schema elements, row groups, column chunks)
+// are copied as they were encoded, only their offsets rewritten, so
+// statistics absent from the input stay absent and fields this code does
+// not know are kept (thrift_raw.go).
 func NewSpliceSink(target string, plan *SplicePlan, schema *arrow.Schema, opt SpliceOptions) (Committer, error) {
 	if opt.Alloc == nil {
 		opt.Alloc = memory.DefaultAllocator
@@ -339,10 +341,19 @@ func shiftOffsetIndex(b []byte, d int64) ([]byte, error) {
 	if err := thrift.Unmarshal(&thriftCompact, b, &ix); err != nil {
 		return nil, fmt.Errorf("offset index: %w", err)
 	}
-	for i := range ix.PageLocations {
-		ix.PageLocations[i].Offset += d
+	return marshalShifted(&ix, d)
+}
+
+// marshalShifted encodes a copy of ix with every page moved by d bytes. An
+// offset index has only required fields and lists, so parquet-go's
+// structures hold all of it.
+func marshalShifted(ix *format.OffsetIndex, d int64) ([]byte, error) {
+	c := *ix
+	c.PageLocations = slices.Clone(ix.PageLocations)
+	for i := range c.PageLocations {
+		c.PageLocations[i].Offset += d
 	}
-	return thrift.Marshal(&thriftCompact, &ix)
+	return thrift.Marshal(&thriftCompact, &c)
 }
 
 // Close writes the page indexes and the footer, then commits the file.
@@ -423,20 +434,15 @@ func (s *spliceSink) finish() error {
 			}
 		}
 	}
-	buf := make([]byte, 0, 4096)
 	for i := range s.rowGroups {
 		cols := s.rowGroups[i].Columns
 		src := s.plan.meta.RowGroups[i].Columns
 		for j := range src {
-			n := src[j].OffsetIndexLength
-			if n <= 0 {
+			ix := s.plan.offsetIndexes[i][j]
+			if ix == nil {
 				continue
 			}
-			buf = slices.Grow(buf[:0], int(n))[:n]
-			if _, err := s.in.ReadAt(buf, src[j].OffsetIndexOffset); err != nil {
-				return At(s.plan.path, fmt.Errorf("row group %d: offset index: %w", i, err))
-			}
-			b, err := shiftOffsetIndex(buf, s.shift[i][j])
+			b, err := marshalShifted(ix, s.shift[i][j])
 			if err != nil {
 				return At(s.plan.path, fmt.Errorf("row group %d column %v: %w", i, []string(src[j].MetaData.PathInSchema), err))
 			}
@@ -454,7 +460,7 @@ func (s *spliceSink) finish() error {
 			}
 		}
 	}
-	footer, err := thrift.Marshal(&thriftCompact, s.footer())
+	footer, err := s.footer()
 	if err != nil {
 		return fmt.Errorf("footer: %w", err)
 	}
@@ -464,38 +470,162 @@ func (s *spliceSink) finish() error {
 	return err
 }
 
-// footer is the input's footer with the appended leaves, the new row
-// groups and the output's key-value metadata.
-func (s *spliceSink) footer() *format.FileMetaData {
-	in := &s.plan.meta
-	schema := slices.Clone(in.Schema)
-	root := &schema[0]
-	n, _ := root.NumChildren.Get()
-	root.NumChildren.Set(n + int32(len(s.addSchema)))
-	schema = append(schema, s.addSchema...)
-	kv := make([]format.KeyValue, 0, s.opt.Metadata.Len()+1)
+// footer encodes the output's footer: the input's, struct by struct as it
+// was written (see thrift_raw.go), with the appended leaves, column chunks
+// and column orders added, every input chunk's offsets moved, the row
+// groups' totals set and the output's key-value metadata. The version is
+// the larger of the input's and the appended encoder's; created_by stays
+// the input's.
+func (s *spliceSink) footer() ([]byte, error) {
+	in, b := s.plan, s.plan.raw
+	nIn := in.leaves
+	marshal := func(v any) ([]byte, error) { return thrift.Marshal(&thriftCompact, v) }
+
+	schema := make([][]byte, 0, len(in.schemaEls)+len(s.addSchema))
+	root, err := rewriteStruct(b, in.schemaEls[0][0], func(w *rawWriter, f rawField) (bool, error) {
+		if f.id != 5 {
+			return false, nil
+		}
+		n, err := rawI64(b, f)
+		if err != nil {
+			return false, err
+		}
+		w.int(5, ctI32, n+int64(len(s.addSchema)))
+		return true, nil
+	}, nil)
+	if err != nil {
+		return nil, err
+	}
+	schema = append(schema, root)
+	for _, el := range in.schemaEls[1:] {
+		schema = append(schema, b[el[0]:el[1]])
+	}
+	for i := range s.addSchema {
+		e, err := marshal(&s.addSchema[i])
+		if err != nil {
+			return nil, err
+		}
+		schema = append(schema, e)
+	}
+
+	rgs := make([][]byte, len(s.rowGroups))
+	for i := range s.rowGroups {
+		if rgs[i], err = s.rowGroupBytes(i, nIn); err != nil {
+			return nil, fmt.Errorf("row group %d: %w", i, err)
+		}
+	}
+
+	kv := make([][]byte, 0, s.opt.Metadata.Len()+1)
+	addKV := func(k, v string) {
+		var w rawWriter
+		w.binary(1, k)
+		w.binary(2, v)
+		kv = append(kv, w.end())
+	}
 	for i, k := range s.opt.Metadata.Keys() {
-		kv = append(kv, format.KeyValue{Key: k, Value: s.opt.Metadata.Values()[i]})
+		addKV(k, s.opt.Metadata.Values()[i])
 	}
 	if s.arrowSchema != "" {
-		kv = append(kv, format.KeyValue{Key: arrowSchemaKey, Value: s.arrowSchema})
+		addKV(arrowSchemaKey, s.arrowSchema)
 	}
-	m := &format.FileMetaData{
-		Version: max(in.Version, s.version), Schema: schema, NumRows: in.NumRows,
-		RowGroups: s.rowGroups, KeyValueMetadata: kv, CreatedBy: in.CreatedBy,
-	}
-	if len(in.ColumnOrders) > 0 {
-		orders := slices.Clone(in.ColumnOrders)
-		for k := range s.addSchema {
-			if k < len(s.addOrders) {
-				orders = append(orders, s.addOrders[k])
-			} else {
-				orders = append(orders, format.ColumnOrder{Value: &format.TypeDefinedOrder{}})
-			}
+
+	var w rawWriter
+	wroteKV := false
+	writeKV := func() {
+		if !wroteKV && len(kv) > 0 {
+			w.list(5, ctStruct, kv)
 		}
-		m.ColumnOrders = orders
+		wroteKV = true
 	}
-	return m
+	for _, f := range in.rootFields {
+		if f.id > 5 {
+			writeKV()
+		}
+		switch f.id {
+		case 1:
+			w.int(1, ctI32, int64(max(in.meta.Version, s.version)))
+		case 2:
+			w.list(2, ctStruct, schema)
+		case 4:
+			w.list(4, ctStruct, rgs)
+		case 5:
+			writeKV()
+		case 7:
+			_, els, err := rawList(b, f.start)
+			if err != nil {
+				return nil, err
+			}
+			orders := make([][]byte, 0, len(els)+len(s.addSchema))
+			for _, e := range els {
+				orders = append(orders, b[e[0]:e[1]])
+			}
+			for k := range s.addSchema {
+				o := format.ColumnOrder{Value: &format.TypeDefinedOrder{}}
+				if k < len(s.addOrders) {
+					o = s.addOrders[k]
+				}
+				e, err := marshal(&o)
+				if err != nil {
+					return nil, err
+				}
+				orders = append(orders, e)
+			}
+			w.list(7, ctStruct, orders)
+		default: // num_rows, created_by, and fields this code does not know
+			w.raw(f.id, f.typ, b[f.start:f.end])
+		}
+	}
+	writeKV()
+	return w.end(), nil
+}
+
+// rowGroupBytes encodes output row group i: the input's RowGroup with its
+// column chunks moved and the appended chunks after them.
+func (s *spliceSink) rowGroupBytes(i, nIn int) ([]byte, error) {
+	in, b := s.plan, s.plan.raw
+	out := &s.rowGroups[i]
+	cols := make([][]byte, 0, len(out.Columns))
+	for j, sp := range in.chunkSpans[i] {
+		c := &out.Columns[j]
+		place := chunkPlace{
+			shift:       s.shift[i][j],
+			columnIndex: byteRange{c.ColumnIndexOffset, int64(c.ColumnIndexLength)},
+			offsetIdx:   byteRange{c.OffsetIndexOffset, int64(c.OffsetIndexLength)},
+			bloom:       c.MetaData.BloomFilterOffset,
+		}
+		e, err := rewriteColumnChunk(b, sp[0], in.chunks[i][j], place)
+		if err != nil {
+			return nil, fmt.Errorf("column %d: %w", j, err)
+		}
+		cols = append(cols, e)
+	}
+	for k := nIn; k < len(out.Columns); k++ {
+		e, err := thrift.Marshal(&thriftCompact, &out.Columns[k])
+		if err != nil {
+			return nil, err
+		}
+		cols = append(cols, e)
+	}
+	fields, _, err := rawStruct(b, in.rgSpans[i][0])
+	if err != nil {
+		return nil, err
+	}
+	var w rawWriter
+	w.list(1, ctStruct, cols)
+	w.int(2, ctI64, out.TotalByteSize)
+	w.int(3, ctI64, out.NumRows)
+	if f, ok := fieldOf(fields, 4); ok {
+		w.raw(4, f.typ, b[f.start:f.end]) // sorting columns
+	}
+	w.int(5, ctI64, out.FileOffset)
+	w.int(6, ctI64, out.TotalCompressedSize)
+	w.int(7, ctI16, int64(out.Ordinal))
+	for _, f := range fields {
+		if f.id > 7 {
+			w.raw(f.id, f.typ, b[f.start:f.end])
+		}
+	}
+	return w.end(), nil
 }
 
 // outputArrowSchema returns the ARROW:schema entry of the output: the
@@ -509,7 +639,8 @@ func (s *spliceSink) outputArrowSchema() string {
 		return ""
 	}
 	fields := append(slices.Clone(sc.Fields()), s.schema.Fields()...)
-	out := arrow.NewSchema(fields, nil)
+	md := sc.Metadata()
+	out := arrow.NewSchema(fields, &md)
 	return base64.StdEncoding.EncodeToString(flight.SerializeSchema(out, s.opt.Alloc))
 }
 

@@ -39,7 +39,25 @@ type SplicePlan struct {
 	oneCodec  bool // every chunk uses codec
 	// arrowSchema is the input's ARROW:schema entry, decoded; nil = none.
 	arrowSchema *arrow.Schema
+	// offsetIndexes holds each chunk's offset index, decoded and checked
+	// against the chunk's bytes (nil: none).
+	offsetIndexes [][]*format.OffsetIndex
+
+	// The footer's own bytes and where its structs are in them: the splice
+	// footer copies them rather than re-encoding what parquet-go decoded
+	// (see thrift_raw.go).
+	raw        []byte
+	rootFields []rawField
+	schemaEls  [][2]int   // each SchemaElement
+	rgSpans    [][2]int   // each RowGroup
+	chunkSpans [][][2]int // each RowGroup's ColumnChunks
 }
+
+// maxSpliceRowGroupRows bounds the rows of an input row group that is
+// spliced: the appended columns of a row group are encoded whole in memory
+// (about 32 bytes a row at worst), so a larger row group is re-encoded,
+// which writes row groups of its own size.
+const maxSpliceRowGroupRows = 1 << 22
 
 type byteRange struct{ off, n int64 }
 
@@ -150,6 +168,9 @@ func (p *SplicePlan) read(f *os.File) error {
 	if n := len(buf) - rd.BytesRead(); n != 0 {
 		return fmt.Errorf("%w: footer: %d bytes after its end", ErrMalformed, n)
 	}
+	if err := p.readRaw(buf); err != nil {
+		return p.no("footer: %v", err)
+	}
 	if len(m.Schema) == 0 {
 		return fmt.Errorf("%w: footer has no schema", ErrMalformed)
 	}
@@ -169,12 +190,16 @@ func (p *SplicePlan) read(f *os.File) error {
 		if rg.NumRows <= 0 {
 			return p.no("row group %d has no rows", i)
 		}
+		if rg.NumRows > maxSpliceRowGroupRows {
+			return p.no("row group %d has %d rows; its appended columns would be held in memory whole (the limit is %d rows), and re-encoding writes row groups of --row-group-rows", i, rg.NumRows, maxSpliceRowGroupRows)
+		}
 		if len(rg.Columns) != p.leaves {
 			return fmt.Errorf("%w: row group %d has %d column chunks for %d columns", ErrMalformed, i, len(rg.Columns), p.leaves)
 		}
 		rows += rg.NumRows
 		chunks := make([]byteRange, len(rg.Columns))
 		blooms := make([]byteRange, len(rg.Columns))
+		oix := make([]*format.OffsetIndex, len(rg.Columns))
 		for j := range rg.Columns {
 			c := &rg.Columns[j]
 			md := &c.MetaData
@@ -201,7 +226,7 @@ func (p *SplicePlan) read(f *os.File) error {
 			} else if md.Codec != p.codec {
 				p.oneCodec = false
 			}
-			for _, ix := range []byteRange{{c.ColumnIndexOffset, int64(c.ColumnIndexLength)}, {c.OffsetIndexOffset, int64(c.OffsetIndexLength)}} {
+			for k, ix := range []byteRange{{c.ColumnIndexOffset, int64(c.ColumnIndexLength)}, {c.OffsetIndexOffset, int64(c.OffsetIndexLength)}} {
 				if ix.off == 0 && ix.n == 0 {
 					continue
 				}
@@ -209,6 +234,18 @@ func (p *SplicePlan) read(f *os.File) error {
 					return p.no("%s has a page index at %d+%d, outside the file's data", col, ix.off, ix.n)
 				}
 				p.pageIndex = true
+				b := make([]byte, ix.n)
+				if _, err := f.ReadAt(b, ix.off); err != nil {
+					return err
+				}
+				if err := checkThriftSizes(b); err != nil {
+					return p.no("%s: page index: %v", col, err)
+				}
+				if k == 1 {
+					if oix[j], err = decodeOffsetIndex(p.path, b, r); err != nil {
+						return p.no("%s: offset index: %v", col, err)
+					}
+				}
 			}
 			if md.BloomFilterOffset > 0 {
 				b, err := bloomRange(f, md.BloomFilterOffset, md.BloomFilterLength, footerAt)
@@ -220,6 +257,7 @@ func (p *SplicePlan) read(f *os.File) error {
 		}
 		p.chunks = append(p.chunks, chunks)
 		p.blooms = append(p.blooms, blooms)
+		p.offsetIndexes = append(p.offsetIndexes, oix)
 	}
 	if rows != m.NumRows {
 		return fmt.Errorf("%w: the footer says %d rows but its row groups hold %d", ErrMalformed, m.NumRows, rows)
@@ -261,9 +299,79 @@ func decodeArrowSchemaEntry(file, v string) (*arrow.Schema, error) {
 	return sc, err
 }
 
+// decodeOffsetIndex decodes an offset index and checks that its pages lie
+// in the chunk at r, in order.
+func decodeOffsetIndex(file string, b []byte, r byteRange) (*format.OffsetIndex, error) {
+	ix := new(format.OffsetIndex)
+	if err := guard(file, func() error { return thrift.Unmarshal(&thriftCompact, b, ix) }); err != nil {
+		return nil, err
+	}
+	prev := r.off
+	for k, loc := range ix.PageLocations {
+		if loc.Offset < prev || loc.CompressedPageSize <= 0 || loc.Offset+int64(loc.CompressedPageSize) > r.end() {
+			return nil, fmt.Errorf("page %d at %d+%d is outside its chunk %d+%d or out of order", k, loc.Offset, loc.CompressedPageSize, r.off, r.n)
+		}
+		prev = loc.Offset + int64(loc.CompressedPageSize)
+	}
+	return ix, nil
+}
+
+// readRaw finds the structs of the footer b: the root's fields, the schema
+// elements, the row groups and their column chunks, and checks that they
+// agree with what parquet-go decoded.
+func (p *SplicePlan) readRaw(b []byte) error {
+	root, _, err := rawStruct(b, 0)
+	if err != nil {
+		return err
+	}
+	p.raw, p.rootFields = b, root
+	sf, ok := fieldOf(root, 2)
+	if !ok || sf.typ != ctList {
+		return errors.New("no schema list")
+	}
+	if _, p.schemaEls, err = rawList(b, sf.start); err != nil {
+		return err
+	}
+	if len(p.schemaEls) != len(p.meta.Schema) {
+		return fmt.Errorf("%d schema elements read, %d decoded", len(p.schemaEls), len(p.meta.Schema))
+	}
+	rf, ok := fieldOf(root, 4)
+	if !ok || rf.typ != ctList {
+		return errors.New("no row group list")
+	}
+	if _, p.rgSpans, err = rawList(b, rf.start); err != nil {
+		return err
+	}
+	if len(p.rgSpans) != len(p.meta.RowGroups) {
+		return fmt.Errorf("%d row groups read, %d decoded", len(p.rgSpans), len(p.meta.RowGroups))
+	}
+	for i, sp := range p.rgSpans {
+		fields, _, err := rawStruct(b, sp[0])
+		if err != nil {
+			return err
+		}
+		cf, ok := fieldOf(fields, 1)
+		if !ok || cf.typ != ctList {
+			return fmt.Errorf("row group %d has no column list", i)
+		}
+		_, cs, err := rawList(b, cf.start)
+		if err != nil {
+			return err
+		}
+		if len(cs) != len(p.meta.RowGroups[i].Columns) {
+			return fmt.Errorf("row group %d: %d column chunks read, %d decoded", i, len(cs), len(p.meta.RowGroups[i].Columns))
+		}
+		p.chunkSpans = append(p.chunkSpans, cs)
+	}
+	return nil
+}
+
 // bloomRange returns the bytes of a bloom filter: length when the footer
 // records it, else the header (read from the file) plus the bitset it sizes.
 func bloomRange(f *os.File, off int64, length int32, limit int64) (byteRange, error) {
+	if off < 4 || off >= limit {
+		return byteRange{}, fmt.Errorf("offset %d is outside the file's data", off)
+	}
 	if length > 0 {
 		r := byteRange{off, int64(length)}
 		if r.end() > limit {
@@ -277,7 +385,11 @@ func bloomRange(f *os.File, off int64, length int32, limit int64) (byteRange, er
 	}
 	var h format.BloomFilterHeader
 	rd := thriftCompact.NewReaderFromBytes(buf)
-	if err := thrift.NewDecoder(rd).Decode(&h); err != nil { // four integers: nothing to allocate
+	err := checkThriftSizes(buf)
+	if err == nil {
+		err = guard(f.Name(), func() error { return thrift.NewDecoder(rd).Decode(&h) })
+	}
+	if err != nil {
 		return byteRange{}, fmt.Errorf("header: %v", err)
 	}
 	r := byteRange{off, int64(rd.BytesRead()) + int64(h.NumBytes)}

@@ -3,6 +3,7 @@ package pipeline
 import (
 	"bytes"
 	"context"
+	"encoding/binary"
 	"errors"
 	"fmt"
 	"math/rand/v2"
@@ -800,6 +801,9 @@ func TestPlanSpliceRefuses(t *testing.T) {
 		{"chunk beyond the data", rewrite("beyond.parquet", func(m *format.FileMetaData) {
 			m.RowGroups[2].Columns[0].MetaData.DataPageOffset = int64(len(b))
 		}), "outside the file"},
+		{"row group too large to hold its appended columns", rewrite("huge.parquet", func(m *format.FileMetaData) {
+			m.RowGroups[0].NumRows = maxSpliceRowGroupRows + 1
+		}), "in memory"},
 		{"encrypted columns", encrypted, "encrypted"},
 		{"encrypted footer", encFooter, "encrypted"},
 	}
@@ -967,4 +971,149 @@ func spliceAny(in, out string) (err error) {
 	}
 	sink.Close()
 	return nil
+}
+
+// chunkStatsSet reports, per column of row group 0, whether arrow-go finds
+// statistics and a null count, and the count.
+func chunkStatsSet(t *testing.T, path string, cols int) (set, hasNull []bool, nulls []int64) {
+	t.Helper()
+	pf, err := file.OpenParquetFile(path, false)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer pf.Close()
+	rg := pf.MetaData().RowGroup(0)
+	for j := 0; j < cols; j++ {
+		cc, err := rg.ColumnChunk(j)
+		if err != nil {
+			t.Fatal(err)
+		}
+		ok, _ := cc.StatsSet()
+		set = append(set, ok)
+		var hn bool
+		var n int64
+		if ok {
+			st, err := cc.Statistics()
+			if err != nil {
+				t.Fatal(err)
+			}
+			hn, n = st.HasNullCount(), st.NullCount()
+		}
+		hasNull, nulls = append(hasNull, hn), append(nulls, n)
+	}
+	return set, hasNull, nulls
+}
+
+// A file written without statistics keeps none: re-encoding the footer
+// with parquet-go's structures used to write an empty Statistics with
+// null_count 0 for every input chunk, telling readers that columns with
+// nulls had none (an IS NULL filter could then skip their row groups). And
+// with statistics, the input's are the output's.
+func TestSpliceKeepsStatisticsAsTheyAre(t *testing.T) {
+	for _, stats := range []bool{false, true} {
+		dir := t.TempDir()
+		in, out := filepath.Join(dir, "in.parquet"), filepath.Join(dir, "out.parquet")
+		writeWithPqarrow(t, in, sinkSchema, testBatch, 300, parquet.WithStats(stats))
+		splice(t, in, out, 300, appendedSchema)
+		n := sinkSchema.NumFields()
+		si, hi, ni := chunkStatsSet(t, in, n)
+		so, ho, no := chunkStatsSet(t, out, n)
+		for j := 0; j < n; j++ {
+			if si[j] != so[j] || hi[j] != ho[j] || ni[j] != no[j] {
+				t.Fatalf("statistics %v, column %d: input set=%v has-null-count=%v nulls=%d, output %v %v %d",
+					stats, j, si[j], hi[j], ni[j], so[j], ho[j], no[j])
+			}
+		}
+		// The footer's input structs are the input's bytes, offsets aside:
+		// with nothing to move but offsets, the encoded chunk metadata has
+		// the same length.
+		mi, mo := readFooter(t, mustRead(t, in)), readFooter(t, mustRead(t, out))
+		if a, b := fmt.Sprint(mi.RowGroups[0].Columns[1].MetaData.Statistics), fmt.Sprint(mo.RowGroups[0].Columns[1].MetaData.Statistics); a != b {
+			t.Fatalf("statistics %v: column 1's statistics %s became %s", stats, a, b)
+		}
+	}
+}
+
+func mustRead(t *testing.T, path string) []byte {
+	t.Helper()
+	b, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return b
+}
+
+// Footer damage that reading the data would not notice is found when
+// planning, so the run re-encodes rather than failing after copying the
+// whole file: a bloom filter offset past the data (which used to panic),
+// and an offset index that does not decode.
+func TestPlanSpliceChecksIndexesAndFilters(t *testing.T) {
+	dir := t.TempDir()
+	edit := func(name string, props []parquet.WriterProperty, change func(b []byte, m *format.FileMetaData) []byte) string {
+		p := filepath.Join(dir, name)
+		writeWithPqarrow(t, p, sinkSchema, testBatch, 300, props...)
+		b := mustRead(t, p)
+		var m format.FileMetaData
+		if err := thrift.Unmarshal(&thriftCompact, footerBytes(b), &m); err != nil {
+			t.Fatal(err)
+		}
+		b = change(b, &m)
+		if err := os.WriteFile(p, b, 0o644); err != nil {
+			t.Fatal(err)
+		}
+		return p
+	}
+	withFooter := func(b []byte, m *format.FileMetaData) []byte {
+		f, err := thrift.Marshal(&thriftCompact, m)
+		if err != nil {
+			t.Fatal(err)
+		}
+		body := b[:len(b)-8-len(footerBytes(b))]
+		out := append(append([]byte{}, body...), f...)
+		out = binary.LittleEndian.AppendUint32(out, uint32(len(f)))
+		return append(out, "PAR1"...)
+	}
+	bloom := edit("bloom.parquet", nil, func(b []byte, m *format.FileMetaData) []byte {
+		m.RowGroups[0].Columns[0].MetaData.BloomFilterOffset = 1 << 40
+		m.RowGroups[0].Columns[0].MetaData.BloomFilterLength = 0
+		return withFooter(b, m)
+	})
+	index := edit("index.parquet", []parquet.WriterProperty{parquet.WithPageIndexEnabled(true)}, func(b []byte, m *format.FileMetaData) []byte {
+		c := m.RowGroups[0].Columns[0]
+		for k := c.OffsetIndexOffset; k < c.OffsetIndexOffset+int64(c.OffsetIndexLength); k++ {
+			b[k] = 0xff
+		}
+		return b
+	})
+	moved := edit("moved.parquet", []parquet.WriterProperty{parquet.WithPageIndexEnabled(true)}, func(b []byte, m *format.FileMetaData) []byte {
+		// A page location outside its chunk, in a well-formed index.
+		c := m.RowGroups[0].Columns[0]
+		var ix format.OffsetIndex
+		if err := thrift.Unmarshal(&thriftCompact, b[c.OffsetIndexOffset:c.OffsetIndexOffset+int64(c.OffsetIndexLength)], &ix); err != nil {
+			t.Fatal(err)
+		}
+		ix.PageLocations[0].Offset += 1 << 30
+		nb, err := thrift.Marshal(&thriftCompact, &ix)
+		if err != nil {
+			t.Fatal(err)
+		}
+		at := int64(len(b) - 8 - len(footerBytes(b)))
+		m.RowGroups[0].Columns[0].OffsetIndexOffset, m.RowGroups[0].Columns[0].OffsetIndexLength = at, int32(len(nb))
+		f, err := thrift.Marshal(&thriftCompact, m)
+		if err != nil {
+			t.Fatal(err)
+		}
+		out := append(append(append([]byte{}, b[:at]...), nb...), f...)
+		out = binary.LittleEndian.AppendUint32(out, uint32(len(f)))
+		return append(out, "PAR1"...)
+	})
+	for _, c := range []struct{ path, reason string }{
+		{bloom, "bloom filter"}, {index, "index"}, {moved, "outside its chunk"},
+	} {
+		_, err := PlanSplice(c.path)
+		var ns *NoSpliceError
+		if !errors.As(err, &ns) || !strings.Contains(ns.Reason, c.reason) {
+			t.Errorf("%s: err = %v, want a NoSpliceError about %q", filepath.Base(c.path), err, c.reason)
+		}
+	}
 }
