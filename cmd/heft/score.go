@@ -360,9 +360,13 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 			read = schema0.NumFields()
 			if mode == outNone {
 				// No table is written: read what the model and the
-				// accumulators use, string covariates as dictionaries.
+				// accumulators use, and string covariates as dictionaries
+				// when every input is Parquet (other formats give plain
+				// strings, and the inputs must share one schema).
 				opt.Columns = run.modelColumns(schema0)
-				opt.DictionaryColumns = run.levelColumns(schema0)
+				if allParquet(ins) {
+					opt.DictionaryColumns = run.levelColumns(schema0)
+				}
 				read = len(opt.Columns)
 			}
 		}
@@ -403,6 +407,16 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 	state.Inputs = inputPaths(ins)
 	state.RunSeconds = time.Since(start).Seconds()
 	return finishReport(env, state, f.state, f.report)
+}
+
+// allParquet reports whether every input is a Parquet file.
+func allParquet(ins []pipeline.Input) bool {
+	for _, in := range ins {
+		if in.Format != pipeline.FormatParquet || in.Path == pipeline.Stdin {
+			return false
+		}
+	}
+	return true
 }
 
 // finishReport writes the state and report files, prints the summary, and

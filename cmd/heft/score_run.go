@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"os"
 	"path/filepath"
 	"slices"
 	"strings"
@@ -67,7 +68,8 @@ type scoreRun struct {
 	// is read when the table has it.
 	needOutcome bool
 	// splice: Parquet output may copy the input's column chunks (see
-	// splicePlan); toldWhy: the reason it may not was logged.
+	// splicePlan); toldWhy: a reason it may not that holds for every input
+	// was logged.
 	splice  bool
 	toldWhy bool
 }
@@ -102,7 +104,7 @@ func (r *scoreRun) open(ctx context.Context, in pipeline.Input, opt pipeline.Sou
 		opt.DictionaryColumns = r.levelColumns(schema)
 		read = len(opt.Columns)
 	}
-	if b := batchRowsFor(read, r.f.batchRows); !r.f.batchSet && b != opt.BatchRows {
+	if b := batchRowsFor(read, r.f.batchRows); !r.f.batchSet && b != opt.BatchRows && reopenable(in) {
 		opt.BatchRows = b
 	} else if plan == nil {
 		return input{src: src, file: file}, nil
@@ -114,9 +116,20 @@ func (r *scoreRun) open(ctx context.Context, in pipeline.Input, opt pipeline.Sou
 	return input{src: src, file: file, plan: plan}, nil
 }
 
+// reopenable reports whether in can be opened a second time: a regular
+// file, not stdin or a pipe, whose schema a first open has consumed.
+func reopenable(in pipeline.Input) bool {
+	if in.Path == pipeline.Stdin {
+		return false
+	}
+	st, err := os.Stat(in.Path)
+	return err == nil && st.Mode().IsRegular()
+}
+
 // modelColumns names the columns scoring reads from a table of schema: the
 // covariates, the treatment, the outcome when it is used and present, and
-// the --by columns.
+// the --by columns the table has (a --by name it lacks is left for the
+// accumulators to report as the usage error it is).
 func (r *scoreRun) modelColumns(schema *arrow.Schema) []string {
 	e := &r.m.Encoding
 	cols := []string{e.Treatment.Column}
@@ -126,7 +139,11 @@ func (r *scoreRun) modelColumns(schema *arrow.Schema) []string {
 	if r.withOutcome(schema) {
 		cols = append(cols, e.Outcome.Column)
 	}
-	cols = append(cols, splitList(r.f.by)...)
+	for _, b := range splitList(r.f.by) {
+		if len(schema.FieldIndices(b)) > 0 {
+			cols = append(cols, b)
+		}
+	}
 	seen := map[string]bool{}
 	out := cols[:0]
 	for _, c := range cols {
@@ -177,32 +194,43 @@ func (r *scoreRun) splicePlan(in pipeline.Input) *pipeline.SplicePlan {
 	if !r.splice || in.Format != pipeline.FormatParquet || in.Path == pipeline.Stdin {
 		return nil
 	}
-	why := func(format string, args ...any) *pipeline.SplicePlan {
-		if !r.toldWhy {
-			r.toldWhy = true
+	// A reason that holds for every input (a flag) is told once; one about
+	// a file, for each file.
+	why := func(once bool, format string, args ...any) *pipeline.SplicePlan {
+		if !once || !r.toldWhy {
+			r.toldWhy = r.toldWhy || once
 			r.env.Logf("heft score: re-encoding every column: "+format, args...)
 		}
 		return nil
 	}
 	if f.rowGroupSet {
-		return why("--row-group-rows sets new row groups (copying column chunks keeps the input's)")
+		return why(true, "--row-group-rows sets new row groups (copying column chunks keeps the input's)")
 	}
 	plan, err := pipeline.PlanSplice(in.Path)
 	var ns *pipeline.NoSpliceError
 	switch {
 	case errors.As(err, &ns):
-		r.toldWhy = false // a reason about one file is told for each
-		return why("%s", ns.Error())
+		return why(false, "%s", ns.Error())
 	case err != nil:
 		return nil // the general path reports what is wrong with the file
 	}
-	if c := plan.Compression(); f.compressionSet && c != f.compression {
+	if c := plan.Compression(); f.compressionSet && c != codecName(f.compression) {
 		if c == "" {
 			c = "mixed or other codecs"
 		}
-		return why("the input's column chunks are %s, --compression asks for %s", c, f.compression)
+		return why(false, "%s: its column chunks are %s, --compression asks for %s", in.Path, c, f.compression)
 	}
 	return plan
+}
+
+// codecName is a --compression value in the spelling SplicePlan.Compression
+// uses.
+func codecName(flag string) string {
+	c := strings.ToLower(flag)
+	if c == "uncompressed" {
+		return "none"
+	}
+	return c
 }
 
 // spliceCodec is the appended columns' codec: --compression when given,
