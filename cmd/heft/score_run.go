@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"os"
 	"path/filepath"
+	"runtime/debug"
 	"slices"
 	"strings"
 
@@ -252,6 +253,13 @@ func (r *scoreRun) one(ctx context.Context, op input, in pipeline.Input, target 
 	f := r.f
 	src := op.src
 	schema := src.Schema()
+	if os.Getenv("GOMEMLIMIT") == "" {
+		// A stream's width is known only now (runScore set the limit from
+		// the files' schemas); raise it, never lower it. runScore restores it.
+		if lim := scoreMemoryLimit(schema.NumFields()); lim > debug.SetMemoryLimit(-1) {
+			debug.SetMemoryLimit(lim)
+		}
+	}
 	withOutcome := r.withOutcome(schema)
 	if o := r.m.Encoding.Outcome; o != nil && r.needOutcome && !withOutcome {
 		r.env.Logf("heft score: %s has no outcome column %q: weights and diagnostics only, no effect estimates", in.Path, o.Column)
