@@ -494,44 +494,15 @@ func reencode(t *testing.T, tin arrow.Table, path string, schema *arrow.Schema) 
 // every page location points at a page header and seeking to a row finds it.
 func checkWithParquetGo(t *testing.T, in, out string, pageIndex bool) {
 	t.Helper()
-	open := func(path string) *pq.File {
-		f, err := os.Open(path)
-		if err != nil {
-			t.Fatal(err)
-		}
-		t.Cleanup(func() { f.Close() })
-		st, _ := f.Stat()
-		pf, err := pq.OpenFile(f, st.Size())
-		if err != nil {
-			t.Fatalf("parquet-go cannot open %s: %v", path, err)
-		}
-		return pf
-	}
-	fin, fout := open(in), open(out)
+	fin, fout := openParquetGo(t, in), openParquetGo(t, out)
 	nIn := len(fin.Schema().Columns())
 	if got := len(fout.Schema().Columns()); got != nIn+3 {
 		t.Fatalf("parquet-go sees %d leaf columns, want %d", got, nIn+3)
 	}
-	readAll := func(rg pq.RowGroup) []pq.Row {
-		rows := rg.Rows()
-		defer rows.Close()
-		var all []pq.Row
-		buf := make([]pq.Row, 64)
-		for {
-			n, err := rows.ReadRows(buf)
-			for _, r := range buf[:n] {
-				all = append(all, r.Clone())
-			}
-			if err != nil {
-				break
-			}
-		}
-		return all
-	}
 	var base int64
 	for i, rgIn := range fin.RowGroups() {
 		rgOut := fout.RowGroups()[i]
-		a, b := readAll(rgIn), readAll(rgOut)
+		a, b := rowsOf(rgIn), rowsOf(rgOut)
 		if len(a) != len(b) || int64(len(a)) != rgIn.NumRows() {
 			t.Fatalf("row group %d: parquet-go reads %d rows in, %d out", i, len(a), len(b))
 		}
@@ -596,33 +567,48 @@ func checkWithParquetGo(t *testing.T, in, out string, pageIndex bool) {
 	}
 }
 
-// parquetGoRows reads every row of a file with parquet-go.
-func parquetGoRows(t *testing.T, path string) []pq.Row {
+// openParquetGo opens path with parquet-go, for the test's duration.
+func openParquetGo(t *testing.T, path string) *pq.File {
 	t.Helper()
 	f, err := os.Open(path)
 	if err != nil {
 		t.Fatal(err)
 	}
-	defer f.Close()
-	st, _ := f.Stat()
+	t.Cleanup(func() { f.Close() })
+	st, err := f.Stat()
+	if err != nil {
+		t.Fatal(err)
+	}
 	pf, err := pq.OpenFile(f, st.Size())
 	if err != nil {
 		t.Fatalf("parquet-go cannot open %s: %v", path, err)
 	}
+	return pf
+}
+
+// rowsOf reads every row of a row group with parquet-go.
+func rowsOf(rg pq.RowGroup) []pq.Row {
+	rows := rg.Rows()
+	defer rows.Close()
 	var all []pq.Row
-	for _, rg := range pf.RowGroups() {
-		rows := rg.Rows()
-		buf := make([]pq.Row, 64)
-		for {
-			n, err := rows.ReadRows(buf)
-			for _, r := range buf[:n] {
-				all = append(all, r.Clone())
-			}
-			if err != nil {
-				break
-			}
+	buf := make([]pq.Row, 64)
+	for {
+		n, err := rows.ReadRows(buf)
+		for _, r := range buf[:n] {
+			all = append(all, r.Clone())
 		}
-		rows.Close()
+		if err != nil {
+			return all
+		}
+	}
+}
+
+// parquetGoRows reads every row of a file with parquet-go.
+func parquetGoRows(t *testing.T, path string) []pq.Row {
+	t.Helper()
+	var all []pq.Row
+	for _, rg := range openParquetGo(t, path).RowGroups() {
+		all = append(all, rowsOf(rg)...)
 	}
 	return all
 }
@@ -703,16 +689,7 @@ func checkSeekWithArrow(t *testing.T, in, out string, rows int64) {
 // the output and asks it about a value present and one absent.
 func checkBloom(t *testing.T, path string, m *format.FileMetaData) {
 	t.Helper()
-	f, err := os.Open(path)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer f.Close()
-	st, _ := f.Stat()
-	pf, err := pq.OpenFile(f, st.Size())
-	if err != nil {
-		t.Fatal(err)
-	}
+	pf := openParquetGo(t, path)
 	col, ok := pf.Schema().Lookup("name")
 	if !ok {
 		t.Fatal("no column name")
