@@ -25,6 +25,11 @@ type SpliceOptions struct {
 	CreatedBy   string         // writer name for the appended columns' encoder (the footer keeps the input's)
 	Alloc       memory.Allocator
 	Workers     int // columns encoded at once, as in ParquetSinkOptions
+	// SpillRows: a row group of more rows has its appended columns encoded
+	// straight to temporary files beside the target, one per column, page
+	// by page, and copied from there; smaller ones are encoded in memory.
+	// 0 = DefaultSpillRows.
+	SpillRows int64
 }
 
 // NewSpliceSink writes to target the Parquet file that plan describes with
@@ -42,7 +47,9 @@ type SpliceOptions struct {
 // The sink takes batches of the appended columns only, in input row order,
 // exactly as many rows as the input holds. The file appears at target only
 // when Close returns nil (see CreateAtomic). Memory is one row group's
-// appended columns, encoded, plus the Parquet sink's buffers.
+// appended columns, encoded, plus the Parquet sink's buffers; above
+// SpillRows rows a row group's appended columns go to temporary files
+// instead, so memory is a few pages.
 //
 // The footer's input structs (schema elements, row groups, column chunks)
 // are copied as they were encoded, only their offsets rewritten, so
@@ -54,6 +61,9 @@ func NewSpliceSink(target string, plan *SplicePlan, schema *arrow.Schema, opt Sp
 	}
 	if opt.Compression == "" {
 		opt.Compression = "snappy"
+	}
+	if opt.SpillRows <= 0 {
+		opt.SpillRows = DefaultSpillRows
 	}
 	s := &spliceSink{target: target, plan: plan, schema: schema, opt: opt, pos: 4}
 	for _, f := range schema.Fields() {
@@ -99,6 +109,7 @@ type spliceSink struct {
 	rgRows int64 // its rows written to w so far
 	w      Committer
 	buf    bytes.Buffer
+	spill  []*columnSpill // per appended column, for a row group above SpillRows
 
 	rowGroups []format.RowGroup
 	shift     [][]int64         // per row group and input column: new offset − old offset
@@ -160,6 +171,9 @@ func (s *spliceSink) Write(ctx context.Context, rec arrow.RecordBatch) error {
 
 func (s *spliceSink) writeRows(ctx context.Context, rec arrow.RecordBatch) error {
 	rg := &s.plan.meta.RowGroups[s.rg]
+	if rg.NumRows > s.opt.SpillRows {
+		return s.spillRows(rec)
+	}
 	if s.w == nil {
 		s.buf.Reset()
 		w, err := NewParquetWriter(&s.buf, s.schema, s.writerOptions(rg.NumRows))
@@ -180,7 +194,53 @@ func (s *spliceSink) writeRows(ctx context.Context, rec arrow.RecordBatch) error
 	if err != nil {
 		return err
 	}
-	return s.finishRowGroup()
+	small, err := parseFooter(s.buf.Bytes())
+	if err != nil {
+		return err
+	}
+	return s.finishRowGroup([]*encoded{{meta: small, b: s.buf.Bytes()}})
+}
+
+// spillRows encodes rec's appended columns into the row group's temporary
+// files, one per column.
+func (s *spliceSink) spillRows(rec arrow.RecordBatch) error {
+	rg := &s.plan.meta.RowGroups[s.rg]
+	if s.spill == nil {
+		for _, f := range s.schema.Fields() {
+			c, err := newColumnSpill(s.target, f, s.opt.Compression, s.plan.pageIndex, s.opt.CreatedBy, s.opt.Alloc)
+			if err != nil {
+				s.removeSpill()
+				return err
+			}
+			s.spill = append(s.spill, c)
+		}
+	}
+	for k, c := range s.spill {
+		if err := c.write(rec.Column(k)); err != nil {
+			return fmt.Errorf("appended column %q: %w", c.field.Name, err)
+		}
+	}
+	s.rgRows += rec.NumRows()
+	if s.rgRows < rg.NumRows {
+		return nil
+	}
+	defer s.removeSpill()
+	encs := make([]*encoded, len(s.spill))
+	for k, c := range s.spill {
+		e, err := c.finish()
+		if err != nil {
+			return err
+		}
+		encs[k] = e
+	}
+	return s.finishRowGroup(encs)
+}
+
+func (s *spliceSink) removeSpill() {
+	for _, c := range s.spill {
+		c.remove()
+	}
+	s.spill = nil
 }
 
 func (s *spliceSink) writerOptions(rows int64) ParquetSinkOptions {
@@ -227,15 +287,13 @@ func parseFooter(b []byte) (*format.FileMetaData, error) {
 }
 
 // finishRowGroup writes row group s.rg: the input's chunks, then the
-// appended ones the encoder left in s.buf.
-func (s *spliceSink) finishRowGroup() error {
-	small, err := parseFooter(s.buf.Bytes())
-	if err != nil {
-		return err
-	}
+// appended ones from the encoder's files, in order.
+func (s *spliceSink) finishRowGroup(encs []*encoded) error {
 	in := &s.plan.meta.RowGroups[s.rg]
-	if len(small.RowGroups) != 1 || small.RowGroups[0].NumRows != in.NumRows {
-		return fmt.Errorf("appended columns of row group %d: the encoder wrote %d row groups, not one of %d rows", s.rg, len(small.RowGroups), in.NumRows)
+	for _, e := range encs {
+		if len(e.meta.RowGroups) != 1 || e.meta.RowGroups[0].NumRows != in.NumRows {
+			return fmt.Errorf("appended columns of row group %d: the encoder wrote %d row groups, not one of %d rows", s.rg, len(e.meta.RowGroups), in.NumRows)
+		}
 	}
 	start := s.pos
 	ranges := s.plan.chunks[s.rg]
@@ -268,35 +326,47 @@ func (s *spliceSink) finishRowGroup() error {
 		shiftChunk(&c, ranges[j], shifts[j])
 		out.Columns = append(out.Columns, c)
 	}
-	b := s.buf.Bytes()
-	added := make([]appendedChunk, 0, len(small.RowGroups[0].Columns))
-	for _, c := range small.RowGroups[0].Columns {
-		md := &c.MetaData
-		r := byteRange{md.DataPageOffset, md.TotalCompressedSize}
-		if d := md.DictionaryPageOffset; d > 0 && d < r.off {
-			r.off = d
-		}
-		if r.off < 4 || r.end() > int64(len(b)) {
-			return fmt.Errorf("appended column %v: chunk outside the encoder's output", []string(md.PathInSchema))
-		}
-		d := s.pos - r.off
-		var a appendedChunk
-		if c.ColumnIndexLength > 0 {
-			a.columnIndex = slices.Clone(b[c.ColumnIndexOffset : c.ColumnIndexOffset+int64(c.ColumnIndexLength)])
-		}
-		if c.OffsetIndexLength > 0 {
-			if a.offsetIndex, err = shiftOffsetIndex(b[c.OffsetIndexOffset:c.OffsetIndexOffset+int64(c.OffsetIndexLength)], d); err != nil {
+	added := make([]appendedChunk, 0, len(s.addSchema))
+	for _, e := range encs {
+		for _, c := range e.meta.RowGroups[0].Columns {
+			md := &c.MetaData
+			r := byteRange{md.DataPageOffset, md.TotalCompressedSize}
+			if d := md.DictionaryPageOffset; d > 0 && d < r.off {
+				r.off = d
+			}
+			if r.off < 4 || r.n <= 0 {
+				return fmt.Errorf("appended column %v: chunk at %d+%d", []string(md.PathInSchema), r.off, r.n)
+			}
+			d := s.pos - r.off
+			var a appendedChunk
+			if c.ColumnIndexLength > 0 {
+				b, err := e.read(c.ColumnIndexOffset, int64(c.ColumnIndexLength))
+				if err != nil {
+					return err
+				}
+				a.columnIndex = slices.Clone(b)
+			}
+			if c.OffsetIndexLength > 0 {
+				b, err := e.read(c.OffsetIndexOffset, int64(c.OffsetIndexLength))
+				if err != nil {
+					return err
+				}
+				if a.offsetIndex, err = shiftOffsetIndex(b, d); err != nil {
+					return err
+				}
+			}
+			if err := e.copyTo(s.af, r.off, r.n); err != nil {
 				return err
 			}
+			s.pos += r.n
+			shiftChunk(&c, r, d)
+			out.Columns = append(out.Columns, c)
+			out.TotalByteSize += md.TotalUncompressedSize
+			added = append(added, a)
 		}
-		if _, err := s.af.Write(b[r.off:r.end()]); err != nil {
-			return err
-		}
-		s.pos += r.n
-		shiftChunk(&c, r, d)
-		out.Columns = append(out.Columns, c)
-		out.TotalByteSize += md.TotalUncompressedSize
-		added = append(added, a)
+	}
+	if len(added) != len(s.addSchema) {
+		return fmt.Errorf("appended columns of row group %d: %d chunks encoded for %d columns", s.rg, len(added), len(s.addSchema))
 	}
 	out.TotalCompressedSize = s.pos - start
 	s.rowGroups = append(s.rowGroups, out)
@@ -661,6 +731,7 @@ func (s *spliceSink) abort() error {
 		s.w.Abort()
 		s.w = nil
 	}
+	s.removeSpill()
 	if s.in != nil {
 		s.in.Close()
 	}

@@ -53,12 +53,6 @@ type SplicePlan struct {
 	chunkSpans [][][2]int // each RowGroup's ColumnChunks
 }
 
-// maxSpliceRowGroupRows bounds the rows of an input row group that is
-// spliced: the appended columns of a row group are encoded whole in memory
-// (about 32 bytes a row at worst), so a larger row group is re-encoded,
-// which writes row groups of its own size.
-const maxSpliceRowGroupRows = 1 << 22
-
 type byteRange struct{ off, n int64 }
 
 func (r byteRange) end() int64 { return r.off + r.n }
@@ -189,9 +183,6 @@ func (p *SplicePlan) read(f *os.File) error {
 		rg := &m.RowGroups[i]
 		if rg.NumRows <= 0 {
 			return p.no("row group %d has no rows", i)
-		}
-		if rg.NumRows > maxSpliceRowGroupRows {
-			return p.no("row group %d has %d rows; its appended columns would be held in memory whole (the limit is %d rows), and re-encoding writes row groups of --row-group-rows", i, rg.NumRows, maxSpliceRowGroupRows)
 		}
 		if len(rg.Columns) != p.leaves {
 			return fmt.Errorf("%w: row group %d has %d column chunks for %d columns", ErrMalformed, i, len(rg.Columns), p.leaves)
