@@ -9,6 +9,7 @@ import (
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"reflect"
 	"slices"
 	"strings"
 	"testing"
@@ -393,6 +394,7 @@ func TestSpliceFixtures(t *testing.T) {
 			if fx.pageIndex {
 				checkSeekWithArrow(t, in, out, rows)
 			}
+			checkFooterFaithful(t, min, mout)
 			if fx.bloom {
 				checkBloom(t, out, mout)
 			}
@@ -642,6 +644,57 @@ func rowsOf(rg pq.RowGroup) []pq.Row {
 		}
 		if err != nil {
 			return all
+		}
+	}
+}
+
+// checkFooterFaithful compares the output's footer with the input's, as
+// parquet-go decodes them: every input schema element, column chunk and row
+// group field is the input's but for the offsets splicing moves, the root
+// gains the appended leaves, and created_by and column orders are kept.
+func checkFooterFaithful(t *testing.T, in, out *format.FileMetaData) {
+	t.Helper()
+	nIn := len(in.Schema)
+	if len(out.Schema) != nIn+3 {
+		t.Fatalf("output schema has %d elements, want %d", len(out.Schema), nIn+3)
+	}
+	rootIn, rootOut := in.Schema[0], out.Schema[0]
+	nc, _ := rootIn.NumChildren.Get()
+	rootIn.NumChildren.Set(nc + 3)
+	if !reflect.DeepEqual(rootIn, rootOut) {
+		t.Fatalf("root schema element %+v, want %+v", rootOut, rootIn)
+	}
+	if !reflect.DeepEqual(in.Schema[1:], out.Schema[1:nIn]) {
+		t.Fatal("the input's schema elements changed")
+	}
+	if out.CreatedBy != in.CreatedBy || out.NumRows != in.NumRows {
+		t.Fatalf("created_by %q and %d rows, want %q and %d", out.CreatedBy, out.NumRows, in.CreatedBy, in.NumRows)
+	}
+	if len(in.ColumnOrders) > 0 && !reflect.DeepEqual(in.ColumnOrders, out.ColumnOrders[:len(in.ColumnOrders)]) {
+		t.Fatal("the input's column orders changed")
+	}
+	strip := func(c format.ColumnChunk) format.ColumnChunk {
+		c.FileOffset, c.ColumnIndexOffset, c.OffsetIndexOffset = 0, 0, 0
+		c.OffsetIndexLength = 0 // re-encoded with the new offsets
+		c.MetaData.DataPageOffset, c.MetaData.DictionaryPageOffset, c.MetaData.IndexPageOffset, c.MetaData.BloomFilterOffset = 0, 0, 0, 0
+		return c
+	}
+	for i := range in.RowGroups {
+		a, b := in.RowGroups[i], out.RowGroups[i]
+		if a.NumRows != b.NumRows || !reflect.DeepEqual(a.SortingColumns, b.SortingColumns) {
+			t.Fatalf("row group %d: rows or sorting columns changed", i)
+		}
+		for j := range a.Columns {
+			if x, y := strip(a.Columns[j]), strip(b.Columns[j]); !reflect.DeepEqual(x, y) {
+				t.Fatalf("row group %d column %d: metadata changed beyond its offsets:\n in %+v\nout %+v", i, j, x, y)
+			}
+		}
+		var size int64
+		for _, c := range b.Columns {
+			size += c.MetaData.TotalCompressedSize
+		}
+		if b.TotalCompressedSize != size || b.FileOffset != b.Columns[0].MetaData.DataPageOffset && b.FileOffset != b.Columns[0].MetaData.DictionaryPageOffset {
+			t.Fatalf("row group %d: total_compressed_size %d (chunks %d), file_offset %d", i, b.TotalCompressedSize, size, b.FileOffset)
 		}
 	}
 }
