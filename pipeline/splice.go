@@ -625,6 +625,13 @@ func (s *spliceSink) footer() ([]byte, error) {
 			if err != nil {
 				return nil, err
 			}
+			if len(els) != nIn {
+				// Not one order per leaf (an empty list, say): the input's
+				// field as it was, rather than orders paired with the wrong
+				// columns.
+				w.raw(f.id, f.typ, b[f.start:f.end])
+				continue
+			}
 			orders := make([][]byte, 0, len(els)+len(s.addSchema))
 			for _, e := range els {
 				orders = append(orders, b[e[0]:e[1]])

@@ -168,6 +168,9 @@ func (p *SplicePlan) read(f *os.File) error {
 	if len(m.Schema) == 0 {
 		return fmt.Errorf("%w: footer has no schema", ErrMalformed)
 	}
+	if _, ok := m.Schema[0].NumChildren.Get(); !ok {
+		return p.no("the schema's root has no children count")
+	}
 	for _, el := range m.Schema[1:] {
 		if n, ok := el.NumChildren.Get(); !ok || n == 0 {
 			p.leaves++

@@ -318,7 +318,7 @@ func readFooter(t *testing.T, b []byte) *format.FileMetaData {
 // values (and the same bytes), the appended ones the values written, page
 // indexes still find their pages, and a rerun gives the same bytes.
 func TestSpliceFixtures(t *testing.T) {
-	for _, fx := range spliceFixtures() {
+	for _, fx := range append(append(spliceFixtures(), extraFixtures()...), mangledFixtures()...) {
 		t.Run(fx.name, func(t *testing.T) {
 			dir := t.TempDir()
 			in, out := filepath.Join(dir, "in.parquet"), filepath.Join(dir, "out.parquet")
