@@ -263,9 +263,11 @@ func TestKillMidWrite(t *testing.T) {
 	}
 	dir, model, paths := demoData(t, 300000, 1)
 	before := sha(t, paths[0])
+	ref := filepath.Join(dir, "ref.parquet")
+	mustHeft(t, "score", "-q", "--model", model, "--workers", "1", "--batch-rows", "2000", "-o", ref, paths[0])
 	out := filepath.Join(dir, "killed.parquet")
 	interrupted := 0
-	for _, delay := range []time.Duration{30 * time.Millisecond, 120 * time.Millisecond, 300 * time.Millisecond} {
+	for _, delay := range []time.Duration{10 * time.Millisecond, 30 * time.Millisecond, 60 * time.Millisecond, 120 * time.Millisecond, 300 * time.Millisecond} {
 		cmd := exec.Command(os.Args[0], "score", "-q", "--model", model, "--workers", "1", "--batch-rows", "2000", "-o", out, paths[0])
 		cmd.Env = append(os.Environ(), "HEFT_TEST_MAIN=1")
 		if err := cmd.Start(); err != nil {
@@ -278,10 +280,16 @@ func TestKillMidWrite(t *testing.T) {
 			os.Remove(out) // finished before the kill: nothing to learn from this one
 			continue
 		}
-		interrupted++
-		if st, err := os.Stat(out); err == nil {
-			t.Fatalf("after SIGKILL at %v a file of %d bytes is at the target", delay, st.Size())
+		if _, err := os.Stat(out); err == nil {
+			// The kill came after the commit (the rename), while the
+			// process was ending: the file must be the whole output.
+			if sha(t, out) != sha(t, ref) {
+				t.Fatalf("after SIGKILL at %v the target holds a file that is not the complete output", delay)
+			}
+			os.Remove(out)
+			continue
 		}
+		interrupted++
 	}
 	if interrupted == 0 {
 		t.Fatal("every run finished before its SIGKILL: the test proved nothing; use a larger table")
