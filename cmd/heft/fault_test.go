@@ -2,6 +2,7 @@ package main
 
 import (
 	"bytes"
+	"context"
 	"math/rand/v2"
 	"os"
 	"os/exec"
@@ -13,6 +14,9 @@ import (
 	"time"
 
 	"github.com/apache/arrow-go/v18/parquet/file"
+
+	"github.com/heft-project/heft/cmd/heft/scenario"
+	"github.com/heft-project/heft/pipeline"
 )
 
 // child starts heft as a child process (TestMain runs main when
@@ -312,5 +316,66 @@ func TestOutputModes(t *testing.T) {
 	}
 	if st, _ := os.Stat(e.model); st.Mode().Perm() != 0o644 {
 		t.Errorf("model: mode %v, want 0644", st.Mode().Perm())
+	}
+}
+
+// TestKillDuringSpill: a run killed while it encodes a large row group's
+// appended columns to temporary files (one per column, beside the target)
+// leaves nothing at the target, and the next run into the same place
+// removes those files with its own temporary output.
+func TestKillDuringSpill(t *testing.T) {
+	if testing.Short() {
+		t.Skip("needs a child process")
+	}
+	dir := t.TempDir()
+	rows := int64(pipeline.DefaultSpillRows + 50000)
+	_, paths, err := scenario.Write(context.Background(), filepath.Join(dir, "data"), scenario.Options{Rows: rows, Seed: 3, RowGroupRows: rows})
+	if err != nil {
+		t.Fatal(err)
+	}
+	model := filepath.Join(dir, "model.json")
+	mustHeft(t, "fit", "-q", "-o", model, "--treatment", scenario.ColTreatment, "--covariates", demoCovs, "--sample-rows", "50000", paths[0])
+	out := filepath.Join(dir, "out")
+	if err := os.MkdirAll(out, 0o755); err != nil {
+		t.Fatal(err)
+	}
+	target := filepath.Join(out, "scored.parquet")
+	caught := false
+	for attempt := 0; attempt < 5 && !caught; attempt++ {
+		cmd, _ := child(t, "score", "-q", "--model", model, "--workers", "1", "--batch-rows", "4096", "-o", target, paths[0])
+		deadline := time.Now().Add(20 * time.Second)
+		for time.Now().Before(deadline) {
+			if _, hidden := dirFiles(t, out); len(hidden) >= 2 { // the output's and a column's
+				break
+			}
+			time.Sleep(time.Millisecond)
+		}
+		cmd.Process.Signal(syscall.SIGKILL)
+		cmd.Wait()
+		if cmd.ProcessState.Success() {
+			os.Remove(target)
+			continue
+		}
+		visible, hidden := dirFiles(t, out)
+		if len(visible) != 0 {
+			t.Fatalf("after the kill: %v at the target", visible)
+		}
+		caught = len(hidden) >= 2
+	}
+	if !caught {
+		t.Fatal("no kill landed while the appended columns were being spilled")
+	}
+	mustHeft(t, "score", "-q", "--model", model, "-o", target, paths[0])
+	visible, hidden := dirFiles(t, out)
+	if len(hidden) != 0 || len(visible) != 1 {
+		t.Fatalf("after a rerun: visible %v, hidden %v; want the output alone", visible, hidden)
+	}
+	pf, err := file.OpenParquetFile(target, false)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer pf.Close()
+	if pf.NumRows() != rows {
+		t.Fatalf("rerun wrote %d rows, want %d", pf.NumRows(), rows)
 	}
 }
