@@ -65,6 +65,16 @@ type shared struct {
 	dense bool
 }
 
+// findBinary finds the 0/1 terms of X's first n rows into bt, or none in
+// dense mode (the tests' oracle for the sums over the ones).
+func (sh *shared) findBinary(bt *binaryTerms, X [][]float64, n int) {
+	if sh.dense {
+		bt.none(len(X))
+		return
+	}
+	bt.find(X, n)
+}
+
 // scratch holds per-batch buffers, pooled so that the engine's one State
 // per batch allocates no per-row memory.
 type scratch struct {
@@ -362,11 +372,7 @@ func checkBatch(sh *shared, b *fit.Batch, sc *score.Scores, bt *binaryTerms) err
 				Err: fmt.Errorf("aggregate: term has %d values for a batch of %d rows", len(col), n)}
 		}
 	}
-	if sh.dense {
-		bt.none(len(b.X))
-	} else {
-		bt.find(b.X, n)
-	}
+	sh.findBinary(bt, b.X, n)
 	for j, col := range b.X {
 		if bt.is[j] {
 			continue
@@ -436,11 +442,7 @@ func (s *State) addSegments(cols []arrow.Array, b *fit.Batch, sc *score.Scores, 
 	for l, g := range x.local {
 		gather(idx[off[l]:off[l+1]], b, sc, x.arm, x.w, &x.g)
 		x.g.rows.split(x.g.arm)
-		if sh.dense {
-			x.bin.none(len(x.g.b.X))
-		} else {
-			x.bin.find(x.g.b.X, x.g.b.N)
-		}
+		sh.findBinary(&x.bin, x.g.b.X, x.g.b.N)
 		g.add(&x.g.b, &x.g.s, &x.g.rows, x.g.arm, x.g.w, x.hist, &x.bin, &x.eff)
 	}
 	return nil

@@ -64,19 +64,20 @@ func (t *levelTable) find(b []byte) int32 {
 func (t *levelTable) stringPositions(arr any, out []int32) bool {
 	switch a := arr.(type) {
 	case *array.String:
-		offs, data := a.ValueOffsets(), a.ValueBytes()
-		base := offs[0]
-		for i := range out {
-			out[i] = t.find(data[offs[i]-base : offs[i+1]-base])
-		}
+		findAll(t, a.ValueOffsets(), a.ValueBytes(), out)
 		return true
 	case *array.LargeString:
-		offs, data := a.ValueOffsets(), a.ValueBytes()
-		base := offs[0]
-		for i := range out {
-			out[i] = t.find(data[offs[i]-base : offs[i+1]-base])
-		}
+		findAll(t, a.ValueOffsets(), a.ValueBytes(), out)
 		return true
 	}
 	return false
+}
+
+// findAll looks up each value of a string array given as its offsets (32-
+// or 64-bit) and bytes.
+func findAll[O int32 | int64](t *levelTable, offs []O, data []byte, out []int32) {
+	base := offs[0]
+	for i := range out {
+		out[i] = t.find(data[offs[i]-base : offs[i+1]-base])
+	}
 }

@@ -49,15 +49,11 @@ func (t *footerTail) flush() error {
 // byte of the footer is kept (see thrift_raw.go), and a footer that is
 // already in order comes back as it was.
 func canonicalFooter(tail []byte) ([]byte, error) {
-	if len(tail) < 8 || string(tail[len(tail)-4:]) != "PAR1" {
-		return nil, fmt.Errorf("footer: the writer did not end the file with PAR1")
+	b, err := footerOf(tail)
+	if err != nil {
+		return nil, fmt.Errorf("footer written at close: %w", err)
 	}
-	n := int(binary.LittleEndian.Uint32(tail[len(tail)-8:]))
-	if n > len(tail)-8 {
-		return nil, fmt.Errorf("footer: %d bytes long, more than the %d written at close", n, len(tail)-8)
-	}
-	start := len(tail) - 8 - n
-	b := tail[start : start+n]
+	start := len(tail) - 8 - len(b)
 	if err := checkThriftSizes(b); err != nil {
 		return nil, fmt.Errorf("footer: %w", err)
 	}

@@ -111,15 +111,25 @@ type spliceSink struct {
 	buf    bytes.Buffer
 	spill  []*columnSpill // per appended column, for a row group above SpillRows
 
-	rowGroups []format.RowGroup
-	shift     [][]int64         // per row group and input column: new offset − old offset
-	added     [][]appendedChunk // per row group and appended column
+	rowGroups []splicedRowGroup
 	addSchema []format.SchemaElement
 	addOrders []format.ColumnOrder
 	version   int32
 
 	err    error // sticky
 	closed bool
+}
+
+// splicedRowGroup is an output row group as written so far: where the
+// input's chunks went (their footer structs are rewritten from the input's
+// bytes, thrift_raw.go) and the appended chunks' metadata, whose page
+// indexes and bloom filters are placed at the end of the file.
+type splicedRowGroup struct {
+	numRows, totalByteSize, totalCompressed, fileOffset int64
+	ordinal                                             int16
+	in                                                  []chunkPlace
+	added                                               []format.ColumnChunk
+	addedIndex                                          []appendedChunk
 }
 
 // appendedChunk holds an appended column chunk's page indexes until the end
@@ -270,17 +280,28 @@ func (s *spliceSink) encode(rec arrow.RecordBatch, rows int64) (*format.FileMeta
 	return parseFooter(s.buf.Bytes())
 }
 
-// parseFooter decodes the footer of the Parquet file in b.
-func parseFooter(b []byte) (*format.FileMetaData, error) {
-	if len(b) < 12 || string(b[len(b)-4:]) != "PAR1" {
-		return nil, errors.New("appended columns: the encoder wrote no Parquet footer")
+// footerOf returns the thrift footer at the end of b, the tail of a Parquet
+// file: the footer, its length (4 bytes, little-endian) and PAR1.
+func footerOf(b []byte) ([]byte, error) {
+	if len(b) < 8 || string(b[len(b)-4:]) != "PAR1" {
+		return nil, errors.New("no Parquet footer: the bytes do not end with PAR1")
 	}
 	n := int(binary.LittleEndian.Uint32(b[len(b)-8:]))
-	if n > len(b)-12 {
-		return nil, errors.New("appended columns: footer length out of range")
+	if n > len(b)-8 {
+		return nil, fmt.Errorf("the footer claims %d bytes, %d precede its length", n, len(b)-8)
+	}
+	return b[len(b)-8-n : len(b)-8], nil
+}
+
+// parseFooter decodes the footer at the end of b (see footerOf), one that
+// heft's own encoder wrote.
+func parseFooter(b []byte) (*format.FileMetaData, error) {
+	f, err := footerOf(b)
+	if err != nil {
+		return nil, fmt.Errorf("appended columns: %w", err)
 	}
 	var m format.FileMetaData
-	if err := thrift.Unmarshal(&thriftCompact, b[len(b)-8-n:len(b)-8], &m); err != nil {
+	if err := thrift.Unmarshal(&thriftCompact, f, &m); err != nil {
 		return nil, fmt.Errorf("appended columns: footer: %w", err)
 	}
 	return &m, nil
@@ -297,7 +318,15 @@ func (s *spliceSink) finishRowGroup(encs []*encoded) error {
 	}
 	start := s.pos
 	ranges := s.plan.chunks[s.rg]
-	shifts := make([]int64, len(ranges))
+	out := splicedRowGroup{
+		numRows: in.NumRows, totalByteSize: in.TotalByteSize, fileOffset: start, ordinal: in.Ordinal,
+		in:         make([]chunkPlace, len(ranges)),
+		added:      make([]format.ColumnChunk, 0, len(s.addSchema)),
+		addedIndex: make([]appendedChunk, 0, len(s.addSchema)),
+	}
+	if s.rg <= math.MaxInt16 {
+		out.ordinal = int16(s.rg) // what the ordinal means; writers that leave it out decode as 0
+	}
 	// Chunks that follow each other in the input are copied in one go.
 	for j := 0; j < len(ranges); {
 		k := j + 1
@@ -309,24 +338,11 @@ func (s *spliceSink) finishRowGroup(encs []*encoded) error {
 			return err
 		}
 		for c := j; c < k; c++ {
-			shifts[c] = s.pos - span.off
+			out.in[c].shift = s.pos - span.off
 		}
 		s.pos += span.n
 		j = k
 	}
-	out := format.RowGroup{
-		Columns:       make([]format.ColumnChunk, 0, len(in.Columns)+len(s.addSchema)),
-		TotalByteSize: in.TotalByteSize, NumRows: in.NumRows, SortingColumns: in.SortingColumns,
-		FileOffset: start, Ordinal: in.Ordinal,
-	}
-	if s.rg <= math.MaxInt16 {
-		out.Ordinal = int16(s.rg) // what the ordinal means; writers that leave it out decode as 0
-	}
-	for j, c := range in.Columns {
-		shiftChunk(&c, ranges[j], shifts[j])
-		out.Columns = append(out.Columns, c)
-	}
-	added := make([]appendedChunk, 0, len(s.addSchema))
 	for _, e := range encs {
 		for _, c := range e.meta.RowGroups[0].Columns {
 			md := &c.MetaData
@@ -360,25 +376,25 @@ func (s *spliceSink) finishRowGroup(encs []*encoded) error {
 			}
 			s.pos += r.n
 			shiftChunk(&c, r, d)
-			out.Columns = append(out.Columns, c)
-			out.TotalByteSize += md.TotalUncompressedSize
-			added = append(added, a)
+			out.added = append(out.added, c)
+			out.addedIndex = append(out.addedIndex, a)
+			out.totalByteSize += md.TotalUncompressedSize
 		}
 	}
-	if len(added) != len(s.addSchema) {
-		return fmt.Errorf("appended columns of row group %d: %d chunks encoded for %d columns", s.rg, len(added), len(s.addSchema))
+	if len(out.added) != len(s.addSchema) {
+		return fmt.Errorf("appended columns of row group %d: %d chunks encoded for %d columns", s.rg, len(out.added), len(s.addSchema))
 	}
-	out.TotalCompressedSize = s.pos - start
+	out.totalCompressed = s.pos - start
 	s.rowGroups = append(s.rowGroups, out)
-	s.shift = append(s.shift, shifts)
-	s.added = append(s.added, added)
 	s.rg++
 	s.rgRows = 0
 	return nil
 }
 
-// shiftChunk moves a column chunk's offsets by d bytes (the chunk was at
-// r) and clears its page index and bloom filter places, set at the end.
+// shiftChunk moves an appended column chunk's offsets by d bytes (the chunk
+// was at r in the encoder's file) and clears its page index places, set at
+// the end. The input's chunks are moved in their own bytes instead
+// (rewriteColumnChunk).
 func shiftChunk(c *format.ColumnChunk, r byteRange, d int64) {
 	md := &c.MetaData
 	md.DataPageOffset += d
@@ -397,8 +413,6 @@ func shiftChunk(c *format.ColumnChunk, r byteRange, d int64) {
 	}
 	c.ColumnIndexOffset, c.ColumnIndexLength = 0, 0
 	c.OffsetIndexOffset, c.OffsetIndexLength = 0, 0
-	md.BloomFilterOffset = 0
-	// Keep BloomFilterLength: whether the input recorded it is kept too.
 }
 
 // shiftOffsetIndex returns the offset index in b with every page moved by d
@@ -474,59 +488,54 @@ func (s *spliceSink) finish() error {
 	}
 	var err error
 	for i := range s.rowGroups {
-		cols := s.rowGroups[i].Columns
 		for j, b := range s.plan.blooms[i] {
 			if b.n > 0 {
-				if cols[j].MetaData.BloomFilterOffset, err = copyIn(b); err != nil {
+				if s.rowGroups[i].in[j].bloom, err = copyIn(b); err != nil {
 					return err
 				}
 			}
 		}
 	}
-	nIn := s.plan.leaves
 	for i := range s.rowGroups {
-		cols := s.rowGroups[i].Columns
-		src := s.plan.meta.RowGroups[i].Columns
-		for j := range src {
-			if n := src[j].ColumnIndexLength; n > 0 {
-				if cols[j].ColumnIndexOffset, err = copyIn(byteRange{src[j].ColumnIndexOffset, int64(n)}); err != nil {
+		rg := &s.rowGroups[i]
+		for j, c := range s.plan.meta.RowGroups[i].Columns {
+			if n := int64(c.ColumnIndexLength); n > 0 {
+				if rg.in[j].columnIndex.off, err = copyIn(byteRange{c.ColumnIndexOffset, n}); err != nil {
 					return err
 				}
-				cols[j].ColumnIndexLength = n
+				rg.in[j].columnIndex.n = n
 			}
 		}
-		for k, a := range s.added[i] {
+		for k, a := range rg.addedIndex {
 			if len(a.columnIndex) > 0 {
-				if cols[nIn+k].ColumnIndexOffset, err = write(a.columnIndex); err != nil {
+				if rg.added[k].ColumnIndexOffset, err = write(a.columnIndex); err != nil {
 					return err
 				}
-				cols[nIn+k].ColumnIndexLength = int32(len(a.columnIndex))
+				rg.added[k].ColumnIndexLength = int32(len(a.columnIndex))
 			}
 		}
 	}
 	for i := range s.rowGroups {
-		cols := s.rowGroups[i].Columns
-		src := s.plan.meta.RowGroups[i].Columns
-		for j := range src {
-			ix := s.plan.offsetIndexes[i][j]
+		rg := &s.rowGroups[i]
+		for j, ix := range s.plan.offsetIndexes[i] {
 			if ix == nil {
 				continue
 			}
-			b, err := marshalShifted(ix, s.shift[i][j])
+			b, err := marshalShifted(ix, rg.in[j].shift)
 			if err != nil {
-				return At(s.plan.path, fmt.Errorf("row group %d column %v: %w", i, []string(src[j].MetaData.PathInSchema), err))
+				return At(s.plan.path, fmt.Errorf("row group %d column %d: %w", i, j, err))
 			}
-			if cols[j].OffsetIndexOffset, err = write(b); err != nil {
+			if rg.in[j].offsetIdx.off, err = write(b); err != nil {
 				return err
 			}
-			cols[j].OffsetIndexLength = int32(len(b))
+			rg.in[j].offsetIdx.n = int64(len(b))
 		}
-		for k, a := range s.added[i] {
+		for k, a := range rg.addedIndex {
 			if len(a.offsetIndex) > 0 {
-				if cols[nIn+k].OffsetIndexOffset, err = write(a.offsetIndex); err != nil {
+				if rg.added[k].OffsetIndexOffset, err = write(a.offsetIndex); err != nil {
 					return err
 				}
-				cols[nIn+k].OffsetIndexLength = int32(len(a.offsetIndex))
+				rg.added[k].OffsetIndexLength = int32(len(a.offsetIndex))
 			}
 		}
 	}
@@ -580,7 +589,7 @@ func (s *spliceSink) footer() ([]byte, error) {
 
 	rgs := make([][]byte, len(s.rowGroups))
 	for i := range s.rowGroups {
-		if rgs[i], err = s.rowGroupBytes(i, nIn); err != nil {
+		if rgs[i], err = s.rowGroupBytes(i); err != nil {
 			return nil, fmt.Errorf("row group %d: %w", i, err)
 		}
 	}
@@ -658,26 +667,19 @@ func (s *spliceSink) footer() ([]byte, error) {
 
 // rowGroupBytes encodes output row group i: the input's RowGroup with its
 // column chunks moved and the appended chunks after them.
-func (s *spliceSink) rowGroupBytes(i, nIn int) ([]byte, error) {
+func (s *spliceSink) rowGroupBytes(i int) ([]byte, error) {
 	in, b := s.plan, s.plan.raw
 	out := &s.rowGroups[i]
-	cols := make([][]byte, 0, len(out.Columns))
+	cols := make([][]byte, 0, len(out.in)+len(out.added))
 	for j, sp := range in.chunkSpans[i] {
-		c := &out.Columns[j]
-		place := chunkPlace{
-			shift:       s.shift[i][j],
-			columnIndex: byteRange{c.ColumnIndexOffset, int64(c.ColumnIndexLength)},
-			offsetIdx:   byteRange{c.OffsetIndexOffset, int64(c.OffsetIndexLength)},
-			bloom:       c.MetaData.BloomFilterOffset,
-		}
-		e, err := rewriteColumnChunk(b, sp[0], in.chunks[i][j], place)
+		e, err := rewriteColumnChunk(b, sp[0], in.chunks[i][j], out.in[j])
 		if err != nil {
 			return nil, fmt.Errorf("column %d: %w", j, err)
 		}
 		cols = append(cols, e)
 	}
-	for k := nIn; k < len(out.Columns); k++ {
-		e, err := thrift.Marshal(&thriftCompact, &out.Columns[k])
+	for k := range out.added {
+		e, err := thrift.Marshal(&thriftCompact, &out.added[k])
 		if err != nil {
 			return nil, err
 		}
@@ -689,14 +691,14 @@ func (s *spliceSink) rowGroupBytes(i, nIn int) ([]byte, error) {
 	}
 	var w rawWriter
 	w.list(1, ctStruct, cols)
-	w.int(2, ctI64, out.TotalByteSize)
-	w.int(3, ctI64, out.NumRows)
+	w.int(2, ctI64, out.totalByteSize)
+	w.int(3, ctI64, out.numRows)
 	if f, ok := fieldOf(fields, 4); ok {
 		w.raw(4, f.typ, b[f.start:f.end]) // sorting columns
 	}
-	w.int(5, ctI64, out.FileOffset)
-	w.int(6, ctI64, out.TotalCompressedSize)
-	w.int(7, ctI16, int64(out.Ordinal))
+	w.int(5, ctI64, out.fileOffset)
+	w.int(6, ctI64, out.totalCompressed)
+	w.int(7, ctI16, int64(out.ordinal))
 	for _, f := range fields {
 		if f.id > 7 {
 			w.raw(f.id, f.typ, b[f.start:f.end])

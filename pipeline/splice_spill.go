@@ -13,7 +13,6 @@ import (
 	"github.com/apache/arrow-go/v18/parquet"
 	"github.com/apache/arrow-go/v18/parquet/file"
 	"github.com/apache/arrow-go/v18/parquet/pqarrow"
-	"github.com/parquet-go/parquet-go/encoding/thrift"
 	"github.com/parquet-go/parquet-go/format"
 )
 
@@ -165,16 +164,16 @@ func (s *columnSpill) finish() (*encoded, error) {
 		return nil, err
 	}
 	n := int64(binary.LittleEndian.Uint32(tail[:4]))
-	if string(tail[4:]) != "PAR1" || n > s.size-12 {
+	if n > s.size-12 {
 		return nil, fmt.Errorf("appended column %q: the encoder wrote no footer", s.field.Name)
 	}
-	b := make([]byte, n)
+	b := make([]byte, n+8) // the footer and the tail just read, for parseFooter
 	if _, err := s.f.ReadAt(b, s.size-8-n); err != nil {
 		return nil, err
 	}
-	m := new(format.FileMetaData)
-	if err := thrift.Unmarshal(&thriftCompact, b, m); err != nil {
-		return nil, fmt.Errorf("appended column %q: footer: %w", s.field.Name, err)
+	m, err := parseFooter(b)
+	if err != nil {
+		return nil, fmt.Errorf("appended column %q: %w", s.field.Name, err)
 	}
 	return &encoded{meta: m, f: s.f}, nil
 }

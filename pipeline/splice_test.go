@@ -853,7 +853,6 @@ func TestPlanSpliceRefuses(t *testing.T) {
 	good := filepath.Join(dir, "good.parquet")
 	writeWithPqarrow(t, good, sinkSchema, testBatch, 1000, parquet.WithMaxRowGroupLength(400))
 	b, _ := os.ReadFile(good)
-	m := readFooter(t, b)
 	rewrite := func(name string, edit func(m *format.FileMetaData)) string {
 		var c format.FileMetaData
 		if err := thrift.Unmarshal(&thriftCompact, footerBytes(b), &c); err != nil {
@@ -874,7 +873,6 @@ func TestPlanSpliceRefuses(t *testing.T) {
 		}
 		return p
 	}
-	_ = m
 	encrypted := filepath.Join(dir, "encrypted.parquet")
 	{
 		f, _ := os.Create(encrypted)
@@ -939,8 +937,11 @@ func TestPlanSpliceRefuses(t *testing.T) {
 
 // footerBytes returns the thrift footer of the Parquet file b.
 func footerBytes(b []byte) []byte {
-	n := int(b[len(b)-8]) | int(b[len(b)-7])<<8 | int(b[len(b)-6])<<16 | int(b[len(b)-5])<<24
-	return b[len(b)-8-n : len(b)-8]
+	f, err := footerOf(b)
+	if err != nil {
+		panic(err)
+	}
+	return f
 }
 
 // TestThriftSizeCheck: container and binary sizes that claim more than the

@@ -111,7 +111,7 @@ const (
 // says otherwise: memory is bounded by batch size × queue depth by design,
 // and the limit keeps the collector from letting garbage grow past that.
 // A batch holds every column read, so a wide table re-encoded needs more:
-// the limit is memoryLimitPerColumn per input column when that is larger.
+// the limit is memoryLimitPerColumn per column read when that is larger.
 // A limit below the live batches would make the collector run back to back
 // (a 101-column table re-encoded took 18.6 s at 384 MiB, 9.5 s at 1 GiB).
 const (
@@ -138,7 +138,7 @@ func batchRowsFor(columns, flag int) int {
 	return min(flag, max(minBatchRows, cellBudget/columns/1024*1024))
 }
 
-// scoreMemoryLimit is the soft limit for inputs of up to columns columns.
+// scoreMemoryLimit is the soft limit for a read of columns columns.
 func scoreMemoryLimit(columns int) int64 {
 	return max(memoryLimit, int64(columns)*memoryLimitPerColumn)
 }
@@ -154,7 +154,7 @@ const gcPercent = 50
 func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error {
 	start := time.Now()
 	if os.Getenv("GOMEMLIMIT") == "" {
-		// raised below once the inputs' width is known
+		// raised for wide reads once the columns read are known (scoreRun.one)
 		defer debug.SetMemoryLimit(debug.SetMemoryLimit(memoryLimit))
 	}
 	if os.Getenv("GOGC") == "" {
@@ -275,9 +275,6 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 			}
 		}
 	}
-	if os.Getenv("GOMEMLIMIT") == "" && schema0 != nil {
-		debug.SetMemoryLimit(scoreMemoryLimit(schema0.NumFields()))
-	}
 	acfg := aggregate.Config{Model: m, Policy: f.policy, By: splitList(f.by), MinSegmentRows: f.minSegmentRows, MaxSegments: f.maxSegments, Gate: f.gate}
 	// The accumulators run when something asks for their results; a plain
 	// scoring run only writes the table.
@@ -390,11 +387,7 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 		} else if mode == outNone {
 			target = ""
 		}
-		keep := src.Schema().NumFields()
-		if ps, ok := src.(pipeline.PartitionedSource); ok {
-			keep -= len(ps.PartitionColumns())
-		}
-		op := input{src: src, file: arrow.NewSchema(src.Schema().Fields()[:keep], nil)}
+		op := input{src: src, file: fileColumns(src)}
 		if err := run.one(ctx, op, ins[0], target, state, fold); err != nil {
 			return err
 		}

@@ -94,20 +94,18 @@ func (r *scoreRun) open(ctx context.Context, in pipeline.Input, opt pipeline.Sou
 		return input{}, err
 	}
 	schema := src.Schema()
-	keep := schema.NumFields()
-	if ps, ok := src.(pipeline.PartitionedSource); ok {
-		keep -= len(ps.PartitionColumns())
-	}
-	file := arrow.NewSchema(schema.Fields()[:keep], nil)
+	file := fileColumns(src)
 	read := schema.NumFields()
+	reopen := plan != nil // for the model's columns alone
 	if plan != nil {
 		opt.Columns = r.modelColumns(schema)
 		opt.DictionaryColumns = r.levelColumns(schema)
 		read = len(opt.Columns)
 	}
 	if b := batchRowsFor(read, r.f.batchRows); !r.f.batchSet && b != opt.BatchRows && reopenable(in) {
-		opt.BatchRows = b
-	} else if plan == nil {
+		opt.BatchRows, reopen = b, true // for batches sized by the width read
+	}
+	if !reopen {
 		return input{src: src, file: file}, nil
 	}
 	src.Close()
@@ -115,6 +113,16 @@ func (r *scoreRun) open(ctx context.Context, in pipeline.Input, opt pipeline.Sou
 		return input{}, err
 	}
 	return input{src: src, file: file, plan: plan}, nil
+}
+
+// fileColumns is the schema of src's file's own columns: src's without the
+// partition columns it appends, which exist only in folder names.
+func fileColumns(src pipeline.Source) *arrow.Schema {
+	fields := src.Schema().Fields()
+	if ps, ok := src.(pipeline.PartitionedSource); ok {
+		fields = fields[:len(fields)-len(ps.PartitionColumns())]
+	}
+	return arrow.NewSchema(fields, nil)
 }
 
 // reopenable reports whether in can be opened a second time: a regular
@@ -254,8 +262,9 @@ func (r *scoreRun) one(ctx context.Context, op input, in pipeline.Input, target 
 	src := op.src
 	schema := src.Schema()
 	if os.Getenv("GOMEMLIMIT") == "" {
-		// A stream's width is known only now (runScore set the limit from
-		// the files' schemas); raise it, never lower it. runScore restores it.
+		// Batches hold the columns read, known here for every kind of
+		// input, streams included: raise the limit to suit them, never
+		// lower it. runScore restores the caller's.
 		if lim := scoreMemoryLimit(schema.NumFields()); lim > debug.SetMemoryLimit(-1) {
 			debug.SetMemoryLimit(lim)
 		}
