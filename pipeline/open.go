@@ -37,9 +37,44 @@ type SourceOptions struct {
 	// dictionary<values=utf8, indices=int32>. Other formats ignore it.
 	DictionaryColumns []string
 
+	// RowGroups reads only this range of a Parquet file's row groups, so
+	// that one large file can be split into units of work; the zero value
+	// reads them all. Locations keep the file's own row-group and row
+	// numbers. A range past the file's row groups is an *Error; other
+	// formats refuse a range.
+	RowGroups RowGroupRange
+
 	// readDict reads Parquet BYTE_ARRAY columns as dictionaries. Only the
 	// benchmark sets it, to compare with plain utf8 (see parquet_source.go).
 	readDict bool
+}
+
+// RowGroupRange is the row groups [First, First+N) of a Parquet file;
+// N = 0 is the whole file.
+type RowGroupRange struct{ First, N int }
+
+// All reports whether r is the whole file.
+func (r RowGroupRange) All() bool { return r.N == 0 }
+
+func (r RowGroupRange) String() string {
+	if r.All() {
+		return "all row groups"
+	}
+	if r.N == 1 {
+		return fmt.Sprintf("row group %d", r.First)
+	}
+	return fmt.Sprintf("row groups %d-%d", r.First, r.First+r.N-1)
+}
+
+// check requires r to lie within a file of n row groups.
+func (r RowGroupRange) check(n int) error {
+	if r.All() {
+		return nil
+	}
+	if r.First < 0 || r.N < 0 || r.First+r.N > n {
+		return fmt.Errorf("%v asked for, but the file has %d row groups", r, n)
+	}
+	return nil
 }
 
 func (o SourceOptions) alloc() memory.Allocator {
@@ -95,6 +130,9 @@ func Open(ctx context.Context, in Input, opt SourceOptions) (Source, error) {
 			}
 		}
 		in.Format = f
+	}
+	if !opt.RowGroups.All() && in.Format != FormatParquet {
+		return nil, At(in.Path, fmt.Errorf("%v asked for, but only Parquet files have row groups", opt.RowGroups))
 	}
 	p := newProjection(in, opt)
 	var (

@@ -47,6 +47,7 @@ type parquetSource struct {
 	rgRows  int64 // rows in the current row group
 	rgDone  int64 // rows of it already handed out
 	rgStart int64 // file row of its first row
+	rgEnd   int   // one past the last row group read
 	readers []*pqarrow.ColumnReader
 
 	cur arrow.RecordBatch
@@ -78,7 +79,10 @@ func openParquet(path string, p *projection, opt SourceOptions) (Source, error) 
 			}
 		}
 		s.fr, err = pqarrow.NewFileReader(pf, arrProps, s.mem)
-		return err
+		if err != nil {
+			return err
+		}
+		return s.selectRowGroups(opt.RowGroups)
 	})
 	if err != nil {
 		s.Close()
@@ -228,7 +232,7 @@ func (s *parquetSource) Next(ctx context.Context) bool {
 			s.rgStart += s.rgRows
 		}
 		s.releaseReaders()
-		if s.rg+1 >= s.pf.NumRowGroups() {
+		if s.rg+1 >= s.rgEnd {
 			return false
 		}
 		s.rg++
@@ -262,6 +266,28 @@ func (s *parquetSource) Next(ctx context.Context) bool {
 	s.loc = Location{File: s.path, RowGroup: s.rg, Row: s.rgStart + s.rgDone}
 	s.rgDone += n
 	return true
+}
+
+// selectRowGroups sets the source to read the row groups r: it starts
+// before r.First, at the file row of that row group's first row.
+func (s *parquetSource) selectRowGroups(r RowGroupRange) error {
+	md := s.pf.MetaData()
+	s.rgEnd = md.NumRowGroups()
+	if r.All() {
+		return nil
+	}
+	if err := r.check(s.rgEnd); err != nil {
+		return err
+	}
+	for i := range r.First {
+		n := md.RowGroup(i).NumRows()
+		if n < 0 {
+			return fmt.Errorf("%w: row group %d: footer gives %d rows", ErrMalformed, i, n)
+		}
+		s.rgStart += n
+	}
+	s.rg, s.rgEnd = r.First-1, r.First+r.N
+	return nil
 }
 
 func (s *parquetSource) openRowGroup(ctx context.Context) error {

@@ -657,7 +657,13 @@ func (s *spliceSink) footer() ([]byte, error) {
 				orders = append(orders, e)
 			}
 			w.list(7, ctStruct, orders)
-		default: // num_rows, created_by, and fields this code does not know
+		case 3:
+			if !in.sliced {
+				w.raw(f.id, f.typ, b[f.start:f.end])
+				break
+			}
+			w.int(3, ctI64, in.meta.NumRows)
+		default: // created_by, and fields this code does not know
 			w.raw(f.id, f.typ, b[f.start:f.end])
 		}
 	}

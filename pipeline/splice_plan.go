@@ -7,6 +7,7 @@ import (
 	"errors"
 	"fmt"
 	"os"
+	"slices"
 
 	"github.com/apache/arrow-go/v18/arrow"
 	"github.com/apache/arrow-go/v18/arrow/ipc"
@@ -51,6 +52,9 @@ type SplicePlan struct {
 	schemaEls  [][2]int   // each SchemaElement
 	rgSpans    [][2]int   // each RowGroup
 	chunkSpans [][][2]int // each RowGroup's ColumnChunks
+	// sliced: the plan is some of the file's row groups (Slice), so the
+	// footer's num_rows is the slice's rather than the input's bytes.
+	sliced bool
 }
 
 type byteRange struct{ off, n int64 }
@@ -90,6 +94,38 @@ func (p *SplicePlan) RowGroupRows() []int64 {
 		out[i] = rg.NumRows
 	}
 	return out
+}
+
+// Slice returns the plan of row groups r alone (the whole plan when r is
+// All): a file spliced from it holds just those row groups, its footer the
+// input's but for the row groups left out, and its row groups numbered
+// from 0. Everything that describes the whole file (the codec, whether
+// appended columns get page indexes) stays the file's, so the row groups
+// of every slice are spliced as they would be in the whole file.
+func (p *SplicePlan) Slice(r RowGroupRange) (*SplicePlan, error) {
+	if r.All() {
+		return p, nil
+	}
+	if err := r.check(len(p.meta.RowGroups)); err != nil {
+		return nil, At(p.path, err)
+	}
+	lo, hi := r.First, r.First+r.N
+	q := *p
+	q.meta.RowGroups = slices.Clone(p.meta.RowGroups[lo:hi])
+	q.meta.NumRows = 0
+	for k := range q.meta.RowGroups {
+		q.meta.RowGroups[k].Ordinal = int16(k)
+		q.meta.NumRows += q.meta.RowGroups[k].NumRows
+	}
+	q.chunks = p.chunks[lo:hi:hi]
+	q.blooms = p.blooms[lo:hi:hi]
+	if p.offsetIndexes != nil {
+		q.offsetIndexes = p.offsetIndexes[lo:hi:hi]
+	}
+	q.rgSpans = p.rgSpans[lo:hi:hi]
+	q.chunkSpans = p.chunkSpans[lo:hi:hi]
+	q.sliced = true
+	return &q, nil
 }
 
 // Compression returns the codec every column chunk uses in the names of
