@@ -342,25 +342,3 @@ func TestInterrupt(t *testing.T) {
 		t.Fatalf("temporary files left: %v", left)
 	}
 }
-
-func TestScoreMemoryLimit(t *testing.T) {
-	for _, c := range []struct {
-		cols int
-		want int64
-	}{{0, memoryLimit}, {10, memoryLimit}, {38, memoryLimit}, {101, 101 * memoryLimitPerColumn}} {
-		if got := scoreMemoryLimit(c.cols); got != c.want {
-			t.Errorf("%d columns: limit %d, want %d", c.cols, got, c.want)
-		}
-	}
-}
-
-func TestBatchRowsFor(t *testing.T) {
-	for _, c := range []struct{ cols, flag, want int }{
-		{10, 65536, 65536}, {16, 65536, 65536}, {21, 65536, 49152}, {101, 65536, 10240},
-		{1000, 65536, minBatchRows}, {101, 5000, 5000},
-	} {
-		if got := batchRowsFor(c.cols, c.flag); got != c.want {
-			t.Errorf("%d columns, --batch-rows %d: %d, want %d", c.cols, c.flag, got, c.want)
-		}
-	}
-}

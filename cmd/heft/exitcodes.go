@@ -6,6 +6,7 @@ import (
 
 	"github.com/heft-project/heft/fit"
 	"github.com/heft-project/heft/pipeline"
+	"github.com/heft-project/heft/score/job"
 )
 
 // Exit codes, documented in README.md ("Exit codes"). They are the contract
@@ -52,17 +53,18 @@ func exitCode(ctx context.Context, err error) int {
 		ge gateError
 		fe *fit.FitError
 		pe *pipeline.Error
+		je *job.Error
 	)
 	switch {
 	case ctx.Err() != nil || errors.Is(err, context.Canceled):
 		return ExitInterrupted
-	case errors.As(err, &ue):
+	case errors.As(err, &ue), errors.As(err, &je) && je.Kind == job.KindUsage:
 		return ExitUsage
 	case errors.As(err, &ge):
 		return ExitGate
 	case errors.As(err, &me):
 		return ExitModel
-	case errors.As(err, &oe):
+	case errors.As(err, &oe), errors.As(err, &je) && je.Kind == job.KindOutput:
 		return ExitOutput
 	case errors.As(err, &fe):
 		return ExitFit

@@ -19,6 +19,7 @@ import (
 	"github.com/heft-project/heft/fit"
 	"github.com/heft-project/heft/pipeline"
 	"github.com/heft-project/heft/score"
+	"github.com/heft-project/heft/score/job"
 )
 
 type scoreFlags struct {
@@ -107,42 +108,6 @@ const (
 	outStdout                   // Arrow IPC stream on stdout
 )
 
-// memoryLimit is the Go heap's soft limit during scoring unless GOMEMLIMIT
-// says otherwise: memory is bounded by batch size × queue depth by design,
-// and the limit keeps the collector from letting garbage grow past that.
-// A batch holds every column read, so a wide table re-encoded needs more:
-// the limit is memoryLimitPerColumn per column read when that is larger.
-// A limit below the live batches would make the collector run back to back
-// (a 101-column table re-encoded took 18.6 s at 384 MiB, 9.5 s at 1 GiB).
-const (
-	memoryLimit          = 384 << 20
-	memoryLimitPerColumn = 10 << 20
-)
-
-// cellBudget is the default batch size in cells, rows × columns read: a
-// batch of 65,536 rows of 16 columns. A wider read gets fewer rows per
-// batch (never fewer than minBatchRows), so memory stays bounded by the
-// cells in flight whatever the width: a 101-column table re-encoded peaked
-// at 1.0 GiB with 65,536-row batches and at 0.56 GiB with 10,000.
-const (
-	cellBudget   = 65536 * 16
-	minBatchRows = 8192
-)
-
-// batchRowsFor is the default rows per batch for a read of columns columns,
-// a multiple of 1024 (the encoders' own batch).
-func batchRowsFor(columns, flag int) int {
-	if columns <= 16 {
-		return flag
-	}
-	return min(flag, max(minBatchRows, cellBudget/columns/1024*1024))
-}
-
-// scoreMemoryLimit is the soft limit for a read of columns columns.
-func scoreMemoryLimit(columns int) int64 {
-	return max(memoryLimit, int64(columns)*memoryLimitPerColumn)
-}
-
 // gcPercent is the collector's target during scoring unless GOGC says
 // otherwise. Every batch's buffers become garbage once written, so the heap
 // cycles between the live batches and up to (1 + GOGC/100) times them; at
@@ -154,8 +119,8 @@ const gcPercent = 50
 func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error {
 	start := time.Now()
 	if os.Getenv("GOMEMLIMIT") == "" {
-		// raised for wide reads once the columns read are known (scoreRun.one)
-		defer debug.SetMemoryLimit(debug.SetMemoryLimit(memoryLimit))
+		// raised for wide reads once the columns read are known (job.Runner.Score)
+		defer debug.SetMemoryLimit(debug.SetMemoryLimit(job.MemoryLimit))
 	}
 	if os.Getenv("GOGC") == "" {
 		defer debug.SetGCPercent(debug.SetGCPercent(gcPercent))
@@ -285,18 +250,15 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 	}
 	var state *aggregate.State
 	prog := newProgress(env, total)
-	run := &scoreRun{env: env, f: f, m: m, scorer: scorer, mem: mem, format: format, prog: prog,
-		needOutcome: accumulate || f.cols.Predictions,
-		splice:      !f.reencode && format == formatParquet && (mode == outFile || mode == outDir)}
-
-	// fold merges each batch's partial state in input order, so the report
-	// does not depend on the number of workers.
-	fold := func(p any) error {
-		if p == nil {
-			return nil
-		}
-		return state.Merge(p.(*aggregate.State))
-	}
+	run := job.New(m, scorer, job.Options{
+		Columns: f.cols, Unseen: f.unseen, By: splitList(f.by), Format: format,
+		Splice:      !f.reencode && format == job.Parquet && (mode == outFile || mode == outDir),
+		Compression: f.compression, CompressionSet: f.compressionSet,
+		RowGroupRows: f.rowGroupRows, RowGroupSet: f.rowGroupSet,
+		BatchRows: f.batchRows, BatchSet: f.batchSet, Workers: f.workers,
+		NeedOutcome: accumulate || f.cols.Predictions, RaiseMemoryLimit: true,
+		Version: Version, Alloc: mem, Logf: env.Logf, Stdout: env.Stdout, Progress: prog.Tracker,
+	})
 	newState := func(schema *arrow.Schema) error {
 		if state != nil || !accumulate {
 			return nil
@@ -316,21 +278,21 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 			return outputError{err}
 		}
 		for _, in := range ins {
-			op, err := run.open(ctx, in, opt, run.splicePlan(in))
+			p, err := run.Open(ctx, in, opt, run.Plan(in))
 			if err != nil {
 				return err
 			}
-			if err := newState(op.src.Schema()); err != nil {
-				op.src.Close()
+			if err := newState(p.Src.Schema()); err != nil {
+				p.Close()
 				return err
 			}
-			target := dir.Path(in.Rel, format.ext())
+			target := dir.Path(in.Rel, format.Ext())
 			if err := os.MkdirAll(filepath.Dir(target), 0o755); err != nil {
-				op.src.Close()
+				p.Close()
 				return outputError{err}
 			}
-			err = run.one(ctx, op, in, target, state, fold)
-			op.src.Close()
+			err = run.Score(ctx, p, in, target, state)
+			p.Close()
 			if err != nil {
 				return err
 			}
@@ -340,15 +302,15 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 			return outputError{err}
 		}
 	case outFile:
-		op, err := run.open(ctx, ins[0], opt, run.splicePlan(ins[0]))
+		p, err := run.Open(ctx, ins[0], opt, run.Plan(ins[0]))
 		if err != nil {
 			return err
 		}
-		defer op.src.Close()
-		if err := newState(op.src.Schema()); err != nil {
+		defer p.Close()
+		if err := newState(p.Src.Schema()); err != nil {
 			return err
 		}
-		if err := run.one(ctx, op, ins[0], f.out, state, fold); err != nil {
+		if err := run.Score(ctx, p, ins[0], f.out, state); err != nil {
 			return err
 		}
 	default:
@@ -360,15 +322,15 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 				// accumulators use, and string covariates as dictionaries
 				// when every input is Parquet (other formats give plain
 				// strings, and the inputs must share one schema).
-				opt.Columns = run.modelColumns(schema0)
+				opt.Columns = run.ModelColumns(schema0)
 				if allParquet(ins) {
-					opt.DictionaryColumns = run.levelColumns(schema0)
+					opt.DictionaryColumns = run.LevelColumns(schema0)
 				}
 				read = len(opt.Columns)
 			}
 		}
 		if read > 0 && !f.batchSet {
-			opt.BatchRows = batchRowsFor(read, f.batchRows)
+			opt.BatchRows = job.BatchRowsFor(read, f.batchRows)
 		}
 		src, err := pipeline.Concat(ctx, ins, opt)
 		if err != nil {
@@ -383,12 +345,11 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 		}
 		target := f.out
 		if mode == outStdout {
-			target = "-"
+			target = job.Stdout
 		} else if mode == outNone {
 			target = ""
 		}
-		op := input{src: src, file: fileColumns(src)}
-		if err := run.one(ctx, op, ins[0], target, state, fold); err != nil {
+		if err := run.Score(ctx, job.Part{Src: src, File: job.FileColumns(src)}, ins[0], target, state); err != nil {
 			return err
 		}
 	}

@@ -1,0 +1,25 @@
+package job
+
+import "testing"
+
+func TestMemoryLimitFor(t *testing.T) {
+	for _, c := range []struct {
+		cols int
+		want int64
+	}{{0, MemoryLimit}, {10, MemoryLimit}, {38, MemoryLimit}, {101, 101 * memoryLimitPerColumn}} {
+		if got := MemoryLimitFor(c.cols); got != c.want {
+			t.Errorf("%d columns: limit %d, want %d", c.cols, got, c.want)
+		}
+	}
+}
+
+func TestBatchRowsFor(t *testing.T) {
+	for _, c := range []struct{ cols, flag, want int }{
+		{10, 65536, 65536}, {16, 65536, 65536}, {21, 65536, 49152}, {101, 65536, 10240},
+		{1000, 65536, minBatchRows}, {101, 5000, 5000},
+	} {
+		if got := BatchRowsFor(c.cols, c.flag); got != c.want {
+			t.Errorf("%d columns, batch rows %d: %d, want %d", c.cols, c.flag, got, c.want)
+		}
+	}
+}
