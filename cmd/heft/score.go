@@ -228,7 +228,7 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 		} else if mode == outDir {
 			// Concat checks this for the other modes; the files of a
 			// directory output share one state, so they must agree too.
-			if err := sameColumns(path0, schema0, in.Path, s); err != nil {
+			if err := pipeline.SameColumns(path0, schema0, in.Path, s); err != nil {
 				return err
 			}
 		}
@@ -411,30 +411,6 @@ func writeReportJSON(env *Env, rep *aggregate.Report, path string) error {
 		return err
 	}
 	return af.Commit()
-}
-
-// sameColumns requires the schema of path to have the column names and types
-// of the first input's, in order.
-func sameColumns(path0 string, s0 *arrow.Schema, path string, s *arrow.Schema) error {
-	a, b := s0.Fields(), s.Fields()
-	for k := range max(len(a), len(b)) {
-		var why, col string
-		switch {
-		case k >= len(a):
-			col, why = b[k].Name, "column not in the first input"
-		case k >= len(b):
-			col, why = a[k].Name, "column missing here"
-		case a[k].Name != b[k].Name:
-			col, why = b[k].Name, fmt.Sprintf("column %d is %q here but %q there", k+1, b[k].Name, a[k].Name)
-		case !arrow.TypeEqual(a[k].Type, b[k].Type):
-			col, why = b[k].Name, fmt.Sprintf("type %v here but %v there", b[k].Type, a[k].Type)
-		default:
-			continue
-		}
-		return &pipeline.Error{File: path, RowGroup: -1, Row: -1, Column: col,
-			Err: fmt.Errorf("schema differs from the first input %s: %s", path0, why)}
-	}
-	return nil
 }
 
 func isDir(p string) bool {
