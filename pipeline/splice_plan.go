@@ -38,6 +38,7 @@ type SplicePlan struct {
 	pageIndex bool          // some chunk has a column or offset index
 	codec     format.CompressionCodec
 	oneCodec  bool // every chunk uses codec
+	codecSeen bool // codec is the first chunk's
 	// arrowSchema is the input's ARROW:schema entry, decoded; nil = none.
 	arrowSchema *arrow.Schema
 	// offsetIndexes holds each chunk's offset index, decoded and checked
@@ -71,20 +72,29 @@ var thriftCompact thrift.CompactProtocol
 // with the pages) gives a *NoSpliceError; a file that cannot be read gives
 // an *Error.
 func PlanSplice(path string) (*SplicePlan, error) {
+	return PlanSpliceRange(path, RowGroupRange{})
+}
+
+// PlanSpliceRange is PlanSplice(path) followed by Slice(r), but reads and
+// checks the pages, indexes and bloom filters of the row groups r alone, so
+// that each of the many parts of a large file reads only its own. What
+// describes the whole file (its codec, whether it has page indexes) is
+// taken from the whole footer, as PlanSplice does.
+func PlanSpliceRange(path string, r RowGroupRange) (*SplicePlan, error) {
 	f, err := os.Open(path)
 	if err != nil {
 		return nil, At(path, err)
 	}
 	defer f.Close()
 	p := &SplicePlan{path: path}
-	if err := p.read(f); err != nil {
+	if err := p.read(f, r); err != nil {
 		var ns *NoSpliceError
 		if errors.As(err, &ns) {
 			return nil, err
 		}
 		return nil, At(path, err)
 	}
-	return p, nil
+	return p.Slice(r)
 }
 
 // RowGroupRows returns the number of rows of each row group.
@@ -149,11 +159,37 @@ func (p *SplicePlan) Compression() string {
 	return ""
 }
 
+// skim takes what describes the whole file from a row group left out of
+// the range read: its codecs and whether it has page indexes. Its place in
+// the plan is held by empty entries, which Slice cuts off.
+func (p *SplicePlan) skim(rg *format.RowGroup) {
+	for j := range rg.Columns {
+		c := &rg.Columns[j]
+		p.seeCodec(c.MetaData.Codec)
+		if c.ColumnIndexOffset != 0 || c.ColumnIndexLength != 0 || c.OffsetIndexOffset != 0 || c.OffsetIndexLength != 0 {
+			p.pageIndex = true
+		}
+	}
+	p.chunks = append(p.chunks, nil)
+	p.blooms = append(p.blooms, nil)
+	p.offsetIndexes = append(p.offsetIndexes, nil)
+}
+
+// seeCodec notes a chunk's codec for Compression.
+func (p *SplicePlan) seeCodec(c format.CompressionCodec) {
+	switch {
+	case !p.codecSeen:
+		p.codec, p.oneCodec, p.codecSeen = c, true, true
+	case c != p.codec:
+		p.oneCodec = false
+	}
+}
+
 func (p *SplicePlan) no(format string, args ...any) error {
 	return &NoSpliceError{File: p.path, Reason: fmt.Sprintf(format, args...)}
 }
 
-func (p *SplicePlan) read(f *os.File) error {
+func (p *SplicePlan) read(f *os.File, want RowGroupRange) error {
 	st, err := f.Stat()
 	if err != nil {
 		return err
@@ -215,9 +251,11 @@ func (p *SplicePlan) read(f *os.File) error {
 	if n := len(m.ColumnOrders); n != 0 && n != p.leaves {
 		return p.no("the footer has %d column orders for %d columns", n, p.leaves)
 	}
+	if err := want.check(len(m.RowGroups)); err != nil {
+		return err
+	}
 	walker := pageWalker{f: f}
 	var rows int64
-	first := true
 	for i := range m.RowGroups {
 		rg := &m.RowGroups[i]
 		if rg.NumRows <= 0 {
@@ -227,6 +265,10 @@ func (p *SplicePlan) read(f *os.File) error {
 			return fmt.Errorf("%w: row group %d has %d column chunks for %d columns", ErrMalformed, i, len(rg.Columns), p.leaves)
 		}
 		rows += rg.NumRows
+		if !want.All() && (i < want.First || i >= want.First+want.N) {
+			p.skim(rg)
+			continue
+		}
 		chunks := make([]byteRange, len(rg.Columns))
 		blooms := make([]byteRange, len(rg.Columns))
 		oix := make([]*format.OffsetIndex, len(rg.Columns))
@@ -251,11 +293,7 @@ func (p *SplicePlan) read(f *os.File) error {
 				return p.no("%s: %v", col, err)
 			}
 			chunks[j] = r
-			if first {
-				p.codec, p.oneCodec, first = md.Codec, true, false
-			} else if md.Codec != p.codec {
-				p.oneCodec = false
-			}
+			p.seeCodec(md.Codec)
 			for k, ix := range []byteRange{{c.ColumnIndexOffset, int64(c.ColumnIndexLength)}, {c.OffsetIndexOffset, int64(c.OffsetIndexLength)}} {
 				if ix.off == 0 && ix.n == 0 {
 					continue

@@ -13,14 +13,18 @@ import (
 )
 
 // spliceSlice splices the row groups r of in to out, appending the rows of
-// appendedBatch that the whole file's splice would give them.
-func spliceSlice(t *testing.T, in, out string, r RowGroupRange, schema *arrow.Schema) (start, rows int64) {
+// appendedBatch that the whole file's splice would give them, with the
+// plan of PlanSpliceRange when ranged, else that of PlanSplice sliced.
+func spliceSlice(t *testing.T, in, out string, r RowGroupRange, schema *arrow.Schema, ranged bool) (start, rows int64) {
 	t.Helper()
 	whole, err := PlanSplice(in)
 	if err != nil {
 		t.Fatal(err)
 	}
 	plan, err := whole.Slice(r)
+	if ranged {
+		plan, err = PlanSpliceRange(in, r)
+	}
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -92,8 +96,14 @@ func TestSpliceSlices(t *testing.T) {
 			for _, r := range ranges {
 				out := filepath.Join(dir, "slice.parquet")
 				os.Remove(out)
-				start, rows := spliceSlice(t, in, out, r, schema)
+				start, rows := spliceSlice(t, in, out, r, schema, false)
 				b := mustRead(t, out)
+				ranged := filepath.Join(dir, "ranged.parquet")
+				os.Remove(ranged)
+				spliceSlice(t, in, ranged, r, schema, true)
+				if !bytes.Equal(mustRead(t, ranged), b) {
+					t.Fatalf("%v: PlanSpliceRange and PlanSplice then Slice splice different bytes", r)
+				}
 				m := readFooter(t, b)
 				if m.NumRows != rows || len(m.RowGroups) != r.N {
 					t.Fatalf("%v: footer has %d rows in %d row groups, want %d in %d", r, m.NumRows, len(m.RowGroups), rows, r.N)
@@ -178,6 +188,9 @@ func TestRowGroupRangeRefused(t *testing.T) {
 		}
 		if _, err := plan.Slice(r); err == nil {
 			t.Fatalf("plan sliced to %v", r)
+		}
+		if _, err := PlanSpliceRange(in, r); err == nil {
+			t.Fatalf("plan of %v made", r)
 		}
 	}
 	csv := filepath.Join(dir, "in.csv")

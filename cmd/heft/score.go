@@ -278,7 +278,7 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 			return outputError{err}
 		}
 		for _, in := range ins {
-			p, err := run.Open(ctx, in, opt, run.Plan(in))
+			p, err := run.Open(ctx, in, opt, run.Plan(in, pipeline.RowGroupRange{}))
 			if err != nil {
 				return err
 			}
@@ -291,7 +291,7 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 				p.Close()
 				return outputError{err}
 			}
-			err = run.Score(ctx, p, in, target, state)
+			_, err = run.Score(ctx, p, in, target, state)
 			p.Close()
 			if err != nil {
 				return err
@@ -302,7 +302,7 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 			return outputError{err}
 		}
 	case outFile:
-		p, err := run.Open(ctx, ins[0], opt, run.Plan(ins[0]))
+		p, err := run.Open(ctx, ins[0], opt, run.Plan(ins[0], pipeline.RowGroupRange{}))
 		if err != nil {
 			return err
 		}
@@ -310,7 +310,7 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 		if err := newState(p.Src.Schema()); err != nil {
 			return err
 		}
-		if err := run.Score(ctx, p, ins[0], f.out, state); err != nil {
+		if _, err := run.Score(ctx, p, ins[0], f.out, state); err != nil {
 			return err
 		}
 	default:
@@ -349,7 +349,7 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 		} else if mode == outNone {
 			target = ""
 		}
-		if err := run.Score(ctx, job.Part{Src: src, File: job.FileColumns(src)}, ins[0], target, state); err != nil {
+		if _, err := run.Score(ctx, job.Part{Src: src, File: job.FileColumns(src)}, ins[0], target, state); err != nil {
 			return err
 		}
 	}

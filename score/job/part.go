@@ -28,7 +28,8 @@ type Part struct {
 func (p Part) Close() error { return p.Src.Close() }
 
 // Open opens the part of in that opt selects (opt.RowGroups) for scoring.
-// With a splice plan (see Plan) only the model's columns are read.
+// With a splice plan (see Plan, for the same row groups) only the model's
+// columns are read.
 func (r *Runner) Open(ctx context.Context, in pipeline.Input, opt pipeline.SourceOptions, plan *pipeline.SplicePlan) (Part, error) {
 	src, err := pipeline.Open(ctx, in, opt)
 	if err != nil {
@@ -135,11 +136,12 @@ func (r *Runner) withOutcome(schema *arrow.Schema) bool {
 	return r.opt.NeedOutcome && o != nil && len(schema.FieldIndices(o.Column)) > 0
 }
 
-// Plan returns in's layout when its scored Parquet output can copy its
-// column chunks as bytes rather than decode and re-encode every column
-// (the default whenever it applies), else nil, logging why when the reason
-// is not plain: splicing off, a non-Parquet input or output.
-func (r *Runner) Plan(in pipeline.Input) *pipeline.SplicePlan {
+// Plan returns the layout of in's row groups rg (all of them for the zero
+// range) when its scored Parquet output can copy their column chunks as
+// bytes rather than decode and re-encode every column (the default
+// whenever it applies), else nil, logging why when the reason is not
+// plain: splicing off, a non-Parquet input or output.
+func (r *Runner) Plan(in pipeline.Input, rg pipeline.RowGroupRange) *pipeline.SplicePlan {
 	o := &r.opt
 	if !o.Splice || o.Format != Parquet || in.Format != pipeline.FormatParquet || in.Path == pipeline.Stdin {
 		return nil
@@ -156,7 +158,7 @@ func (r *Runner) Plan(in pipeline.Input) *pipeline.SplicePlan {
 	if o.RowGroupSet {
 		return why(true, "--row-group-rows sets new row groups (copying column chunks keeps the input's)")
 	}
-	plan, err := pipeline.PlanSplice(in.Path)
+	plan, err := pipeline.PlanSpliceRange(in.Path, rg)
 	var ns *pipeline.NoSpliceError
 	switch {
 	case errors.As(err, &ns):

@@ -18,8 +18,9 @@ const Stdout = "-"
 // Score streams the part p of in through the model into target ("" = no
 // table, Stdout = an Arrow stream), folding each batch's partial state into
 // state (nil = no accumulators) in input order. The target appears only if
-// everything succeeded: its sink commits atomically.
-func (r *Runner) Score(ctx context.Context, p Part, in pipeline.Input, target string, state *aggregate.State) error {
+// everything succeeded: its sink commits atomically. It returns the number
+// of rows scored.
+func (r *Runner) Score(ctx context.Context, p Part, in pipeline.Input, target string, state *aggregate.State) (int64, error) {
 	o := &r.opt
 	src := p.Src
 	schema := src.Schema()
@@ -37,11 +38,11 @@ func (r *Runner) Score(ctx context.Context, p Part, in pipeline.Input, target st
 	}
 	enc, err := r.m.Encoding.Bind(schema, in.Path, withOutcome, o.Unseen)
 	if err != nil {
-		return err
+		return 0, err
 	}
 	sink, outSchema, err := r.sink(p, target)
 	if err != nil {
-		return err
+		return 0, err
 	}
 	var newAcc func() score.Accumulator
 	fold := func(any) error { return nil }
@@ -68,19 +69,19 @@ func (r *Runner) Score(ctx context.Context, p Part, in pipeline.Input, target st
 	if o.Progress != nil {
 		progress = o.Progress()
 	}
-	_, err = pipeline.Run(ctx, src, outputSink{sink}, newT, fold, pipeline.EngineOptions{Workers: o.Workers, Progress: progress})
+	rows, err := pipeline.Run(ctx, src, outputSink{sink}, newT, fold, pipeline.EngineOptions{Workers: o.Workers, Progress: progress})
 	if err != nil {
 		sink.Abort()
-		return err
+		return 0, err
 	}
 	if err := sink.Close(); err != nil {
 		sink.Abort()
-		return output(err)
+		return 0, output(err)
 	}
 	if target != "" && target != Stdout {
 		r.logf("heft score: wrote %s", target)
 	}
-	return nil
+	return rows, nil
 }
 
 // sink opens the sink of p's output at target and returns it with the
