@@ -53,13 +53,48 @@ func (d *OutDir) Dir() string { return d.dir }
 // extension replaced by ext (".parquet", say), creating the partition
 // folders it needs. A rel that would leave the directory is kept inside it.
 func (d *OutDir) Path(rel string, ext string) string {
+	p := Target(d.dir, rel, ext)
+	os.MkdirAll(filepath.Dir(p), 0o755) // an error resurfaces when the file is created
+	return p
+}
+
+// Target is the path OutDir.Path gives rel under dir, creating nothing:
+// for checking the outputs of a run before it writes any.
+func Target(dir, rel, ext string) string {
 	rel = filepath.Clean("/" + filepath.FromSlash(rel))[1:]
 	if e := filepath.Ext(rel); e != "" {
 		rel = strings.TrimSuffix(rel, e)
 	}
-	p := filepath.Join(d.dir, rel+ext)
-	os.MkdirAll(filepath.Dir(p), 0o755) // an error resurfaces when the file is created
-	return p
+	return filepath.Join(dir, rel+ext)
+}
+
+// RefuseInputTargets fails when any of targets is one of the inputs, the
+// same file by any path or link: an output directory that is (or holds) an
+// input directory would otherwise have its inputs replaced by their scored
+// copies. Targets that do not exist yet cost one failed stat each.
+func RefuseInputTargets(targets []string, ins []Input) error {
+	var infos []os.FileInfo
+	var paths []string
+	for _, in := range ins {
+		if in.Path == Stdin {
+			continue
+		}
+		if st, err := os.Stat(in.Path); err == nil {
+			infos, paths = append(infos, st), append(paths, in.Path)
+		}
+	}
+	for _, t := range targets {
+		st, err := os.Stat(t)
+		if err != nil {
+			continue
+		}
+		for i, in := range infos {
+			if os.SameFile(st, in) {
+				return fmt.Errorf("output %s is the input %s; refusing to overwrite it (choose an output directory outside the inputs)", t, paths[i])
+			}
+		}
+	}
+	return nil
 }
 
 // Success writes the empty success marker, atomically. Call it only after

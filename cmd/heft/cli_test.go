@@ -192,6 +192,31 @@ func TestScoreToStdoutStream(t *testing.T) {
 	}
 }
 
+// A directory output that is the input directory (or would put an output
+// on an input by another path) is refused before anything is written: it
+// would replace the inputs by their scored copies.
+func TestScoreDirectoryOverInputs(t *testing.T) {
+	dir, model, paths := demoData(t, 3000, 2)
+	data := filepath.Join(dir, "data")
+	before, err := os.ReadFile(paths[0])
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, out := range []string{data + "/", data + "/./", filepath.Join(dir, "link") + "/"} {
+		os.Symlink(data, filepath.Join(dir, "link"))
+		r := heft(t, "score", "-q", "--model", model, "-o", out, data)
+		if r.code != ExitUsage || !strings.Contains(r.stderr, "refusing to overwrite") {
+			t.Fatalf("-o %s over its inputs: exit %d\n%s", out, r.code, r.stderr)
+		}
+		if after, _ := os.ReadFile(paths[0]); !bytes.Equal(after, before) {
+			t.Fatal("the input was modified")
+		}
+		if _, err := os.Stat(filepath.Join(data, "_SUCCESS")); err == nil {
+			t.Fatal("a success marker among the inputs")
+		}
+	}
+}
+
 // A directory output keeps one file per input and ends with _SUCCESS.
 func TestScoreDirectory(t *testing.T) {
 	dir, model, _ := demoData(t, 9000, 3)

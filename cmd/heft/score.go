@@ -180,11 +180,16 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 	}
 	if mode == outDir {
 		seen := map[string]string{}
+		var targets []string
 		for _, in := range ins {
 			if prev, ok := seen[in.Rel]; ok {
 				return usagef(fmt.Errorf("%s and %s would both be written to %s in %s; pass their common parent directory instead", prev, in.Path, in.Rel, f.out))
 			}
 			seen[in.Rel] = in.Path
+			targets = append(targets, pipeline.Target(f.out, in.Rel, format.Ext()))
+		}
+		if err := pipeline.RefuseInputTargets(targets, ins); err != nil {
+			return usagef(err)
 		}
 	}
 	if mode == outFile || mode == outDir {
