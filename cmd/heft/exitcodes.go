@@ -62,7 +62,7 @@ func exitCode(ctx context.Context, err error) int {
 		return ExitUsage
 	case errors.As(err, &ge):
 		return ExitGate
-	case errors.As(err, &me):
+	case errors.As(err, &me), errors.As(err, &je) && je.Kind == job.KindModel:
 		return ExitModel
 	case errors.As(err, &oe), errors.As(err, &je) && je.Kind == job.KindOutput:
 		return ExitOutput

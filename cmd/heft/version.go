@@ -6,11 +6,12 @@ import (
 	"github.com/spf13/cobra"
 
 	"github.com/heft-project/heft/fit"
+	"github.com/heft-project/heft/score/job"
 )
 
 // Version is heft's release version; it is written into model files,
 // output metadata and reports.
-const Version = "0.1.0"
+const Version = job.Version
 
 func newVersionCmd(env *Env) *cobra.Command {
 	return &cobra.Command{

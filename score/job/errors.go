@@ -11,6 +11,9 @@ const (
 	KindUsage Kind = iota + 1
 	// KindOutput: the output cannot be written (disk full, permissions).
 	KindOutput
+	// KindModel: the model or state file is unreadable or not for this
+	// data (left to callers: Runner has its model already).
+	KindModel
 )
 
 // Error is an error of a known Kind.

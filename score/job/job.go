@@ -10,6 +10,11 @@ import (
 	"github.com/heft-project/heft/score"
 )
 
+// Version is heft's release version, written into model files, output
+// metadata and reports. heft and heft-beam share it, so a table scored by
+// either carries the same metadata.
+const Version = "0.1.0"
+
 // Format is the output table's format.
 type Format int
 
