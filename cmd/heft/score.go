@@ -23,21 +23,15 @@ import (
 )
 
 type scoreFlags struct {
-	model, out, format, estimand, unseen, compression string
-	workers, batchRows                                int
-	rowGroupRows                                      int64
-	policy                                            score.Policy
-	cols                                              score.Columns
-	state, report                                     string
-	reportOnly                                        bool
-	by                                                string
-	minSegmentRows, maxSegments                       int
-	gate                                              aggregate.Gate
-	reencode, compressionSet, rowGroupSet, batchSet   bool
+	job.Flags                             // shared with heft-beam
+	model, out, format                    string
+	workers                               int
+	reportOnly                            bool
+	compressionSet, rowGroupSet, batchSet bool
 }
 
 func newScoreCmd(env *Env) *cobra.Command {
-	f := scoreFlags{cols: score.DefaultColumns()}
+	var f scoreFlags
 	cmd := &cobra.Command{
 		Use:   "score --model MODEL.json -o OUT [flags] INPUT...",
 		Short: "Stream a table through the model, appending propensities and weights to every row",
@@ -69,32 +63,9 @@ with code 7 after writing its outputs when the weights fail it.`,
 	fl.StringVarP(&f.model, "model", "m", "", "model file from 'heft fit'")
 	fl.StringVarP(&f.out, "output", "o", "", "output file, directory (ends in / or exists), or - for an Arrow stream on stdout")
 	fl.StringVar(&f.format, "format", "", "parquet or arrow (default: from the output's extension; parquet for directories)")
-	fl.StringVar(&f.estimand, "estimand", score.ATE, "weights for: ate, att, atc or overlap")
-	fl.BoolVar(&f.policy.Stabilize, "stabilize", false, "multiply weights by the marginal share of the row's arm at fit")
-	fl.Float64Var(&f.policy.Clip, "clip", 0, "bound propensities to [ε, 1−ε]")
-	fl.Float64Var(&f.policy.Trim, "trim", 0, "zero the weight where e is outside [α, 1−α] (e.g. 0.1)")
-	fl.Float64Var(&f.policy.TruncateQ, "truncate-quantile", 0, "cap weights at the fit sample's q-th weight quantile (e.g. 0.99)")
-	fl.StringVar(&f.unseen, "unseen", fit.UnseenError, "categorical levels not seen at fit: error, or reference (encode as the reference level and count)")
-	fl.BoolVar(&f.cols.Predictions, "predictions", false, "also write the outcome models' predictions mu0 and mu1")
-	fl.StringVar(&f.cols.Propensity, "propensity-column", f.cols.Propensity, "name of the appended propensity column")
-	fl.StringVar(&f.cols.Weight, "weight-column", f.cols.Weight, "name of the appended weight column")
-	fl.StringVar(&f.cols.InSupport, "in-support-column", f.cols.InSupport, "name of the appended in-support column")
-	fl.StringVar(&f.cols.Mu0, "mu0-column", f.cols.Mu0, "name of the appended control-outcome prediction")
-	fl.StringVar(&f.cols.Mu1, "mu1-column", f.cols.Mu1, "name of the appended treated-outcome prediction")
-	fl.StringVar(&f.compression, "compression", "snappy", "Parquet compression: snappy, zstd or none (when column chunks are copied and this is not given, the appended columns take the input's codec)")
-	fl.Int64Var(&f.rowGroupRows, "row-group-rows", 131072, "rows per Parquet row group in the output (re-encodes every column)")
-	fl.BoolVar(&f.reencode, "reencode", false, "decode and re-encode every column rather than copy the input's column chunks")
-	fl.IntVar(&f.batchRows, "batch-rows", 65536, "rows per batch in flight (memory is bounded by batch size × queue depth); by default fewer for inputs of more than 16 columns read")
+	f.Flags.Define(fl)
 	fl.IntVar(&f.workers, "workers", runtime.GOMAXPROCS(0), "scoring workers")
-	fl.StringVar(&f.state, "state", "", "write the mergeable accumulator state here (for 'heft merge')")
-	fl.StringVar(&f.report, "report", "", "write the report JSON here (- for stdout)")
 	fl.BoolVar(&f.reportOnly, "report-only", false, "compute the report without writing the table")
-	fl.StringVar(&f.by, "by", "", "segment columns: estimates and balance per segment")
-	fl.IntVar(&f.minSegmentRows, "min-segment-rows", 100, "suppress segments with fewer rows than this in either arm")
-	fl.IntVar(&f.maxSegments, "max-segments", 1000, "fail when there are more segments than this")
-	fl.Float64Var(&f.gate.MaxSMD, "max-smd", 0, "gate: fail when any term's weighted |SMD| exceeds this (e.g. 0.1)")
-	fl.Float64Var(&f.gate.MinESSShare, "min-ess-share", 0, "gate: fail when an arm's effective sample size is below this share of its rows")
-	fl.Float64Var(&f.gate.MaxPSI, "max-psi", 0, "gate: fail when the propensity drift index (PSI) since the fit exceeds this (e.g. 0.25)")
 	return cmd
 }
 
@@ -128,14 +99,14 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 	if err := requireFlag("model", f.model); err != nil {
 		return err
 	}
-	f.policy.Estimand = strings.ToLower(f.estimand)
-	if err := f.policy.Validate(); err != nil {
+	f.Policy.Estimand = strings.ToLower(f.Estimand)
+	if err := f.Policy.Validate(); err != nil {
 		return usagef(err)
 	}
-	if f.unseen != fit.UnseenError && f.unseen != fit.UnseenReference {
-		return usagef(fmt.Errorf("--unseen must be error or reference, not %q", f.unseen))
+	if f.Unseen != fit.UnseenError && f.Unseen != fit.UnseenReference {
+		return usagef(fmt.Errorf("--unseen must be error or reference, not %q", f.Unseen))
 	}
-	if f.workers < 1 || f.batchRows < 1 || f.rowGroupRows < 1 {
+	if f.workers < 1 || f.BatchRows < 1 || f.RowGroupRows < 1 {
 		return usagef(errors.New("--workers, --batch-rows and --row-group-rows must be positive"))
 	}
 	mode := outFile
@@ -144,7 +115,7 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 		return usagef(errors.New("--report-only writes no table: drop -o"))
 	case f.reportOnly:
 		mode = outNone
-		if f.report == "" && f.state == "" {
+		if f.Report == "" && f.State == "" {
 			env.Logf("heft score: --report-only without --report or --state: the summary goes to stderr only")
 		}
 	case f.out == "":
@@ -154,7 +125,7 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 	case strings.HasSuffix(f.out, "/") || isDir(f.out):
 		mode = outDir
 	}
-	if f.report == "-" && mode == outStdout {
+	if f.Report == "-" && mode == outStdout {
 		return usagef(errors.New("--report - and -o - would both write to stdout"))
 	}
 	format, err := outputFormat(f.format, f.out, mode)
@@ -165,10 +136,10 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 	if err != nil {
 		return modelError{err}
 	}
-	if f.policy, err = f.policy.Resolve(m); err != nil {
+	if f.Policy, err = f.Policy.Resolve(m); err != nil {
 		return modelError{err}
 	}
-	if f.cols.Predictions && m.Outcome == nil {
+	if f.Columns.Predictions && m.Outcome == nil {
 		return usagef(fmt.Errorf("--predictions needs outcome models; %s has none (fit with --outcome)", f.model))
 	}
 	ins, err := pipeline.Expand(args)
@@ -197,19 +168,19 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 			return err
 		}
 	}
-	for _, p := range []string{f.state, f.report} {
+	for _, p := range []string{f.State, f.Report} {
 		if p != "" && p != "-" {
 			if err := refuseOverwrite(p, ins); err != nil {
 				return err
 			}
 		}
 	}
-	scorer, err := score.New(m, f.policy)
+	scorer, err := score.New(m, f.Policy)
 	if err != nil {
 		return modelError{err}
 	}
 	mem := memory.DefaultAllocator
-	opt := pipeline.SourceOptions{Alloc: mem, BatchRows: f.batchRows, PartitionColumns: true, Stdin: env.Stdin}
+	opt := pipeline.SourceOptions{Alloc: mem, BatchRows: f.BatchRows, PartitionColumns: true, Stdin: env.Stdin}
 
 	// Check every input against the model before writing anything.
 	var schema0 *arrow.Schema
@@ -245,23 +216,23 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 			}
 		}
 	}
-	acfg := aggregate.Config{Model: m, Policy: f.policy, By: splitList(f.by), MinSegmentRows: f.minSegmentRows, MaxSegments: f.maxSegments, Gate: f.gate}
+	acfg := aggregate.Config{Model: m, Policy: f.Policy, By: splitList(f.By), MinSegmentRows: f.MinSegmentRows, MaxSegments: f.MaxSegments, Gate: f.Gate}
 	// The accumulators run when something asks for their results; a plain
 	// scoring run only writes the table.
-	accumulate := f.state != "" || f.report != "" || f.reportOnly || f.by != "" ||
-		f.gate.MaxSMD > 0 || f.gate.MinESSShare > 0 || f.gate.MaxPSI > 0
-	if !accumulate && !f.cols.Predictions {
+	accumulate := f.State != "" || f.Report != "" || f.reportOnly || f.By != "" ||
+		f.Gate.MaxSMD > 0 || f.Gate.MinESSShare > 0 || f.Gate.MaxPSI > 0
+	if !accumulate && !f.Columns.Predictions {
 		scorer = scorer.WithoutOutcome()
 	}
 	var state *aggregate.State
 	prog := newProgress(env, total)
 	run := job.New(m, scorer, job.Options{
-		Columns: f.cols, Unseen: f.unseen, By: splitList(f.by), Format: format,
-		Splice:      !f.reencode && format == job.Parquet && (mode == outFile || mode == outDir),
-		Compression: f.compression, CompressionSet: f.compressionSet,
-		RowGroupRows: f.rowGroupRows, RowGroupSet: f.rowGroupSet,
-		BatchRows: f.batchRows, BatchSet: f.batchSet, Workers: f.workers,
-		NeedOutcome: accumulate || f.cols.Predictions, RaiseMemoryLimit: true,
+		Columns: f.Columns, Unseen: f.Unseen, By: splitList(f.By), Format: format,
+		Splice:      !f.Reencode && format == job.Parquet && (mode == outFile || mode == outDir),
+		Compression: f.Compression, CompressionSet: f.compressionSet,
+		RowGroupRows: f.RowGroupRows, RowGroupSet: f.rowGroupSet,
+		BatchRows: f.BatchRows, BatchSet: f.batchSet, Workers: f.workers,
+		NeedOutcome: accumulate || f.Columns.Predictions, RaiseMemoryLimit: true,
 		Version: Version, Alloc: mem, Logf: env.Logf, Stdout: env.Stdout, Progress: prog.Tracker,
 	})
 	newState := func(schema *arrow.Schema) error {
@@ -335,7 +306,7 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 			}
 		}
 		if read > 0 && !f.batchSet {
-			opt.BatchRows = job.BatchRowsFor(read, f.batchRows)
+			opt.BatchRows = job.BatchRowsFor(read, f.BatchRows)
 		}
 		src, err := pipeline.Concat(ctx, ins, opt)
 		if err != nil {
@@ -365,7 +336,7 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 	}
 	state.Inputs = inputPaths(ins)
 	state.RunSeconds = time.Since(start).Seconds()
-	return finishReport(env, state, f.state, f.report)
+	return finishReport(env, state, f.State, f.Report)
 }
 
 // allParquet reports whether every input is a Parquet file.
