@@ -2,8 +2,17 @@ module github.com/heft-project/heft/pipeline/beam
 
 go 1.26.8
 
+// Why each direct dependency (go.mod review):
+//   - apache/beam: the Go SDK of the engine this module targets; its
+//     portable runners (Prism here, Flink, Spark, Dataflow elsewhere) and
+//     its CombineFn model are the job, and writing a cluster by hand would
+//     be worse. It brings its runners' cloud clients, which is why it lives
+//     in its own module, out of the heft binary.
+//   - arrow-go: the core's Arrow library; the tests read outputs back.
+//   - heft: the core module beside this one (see replace below).
 require (
 	github.com/apache/arrow-go/v18 v18.8.0
+	github.com/apache/beam/sdks/v2 v2.77.0
 	github.com/heft-project/heft v0.0.0
 )
 
@@ -63,7 +72,6 @@ require (
 
 require (
 	github.com/andybalholm/brotli v1.2.3 // indirect
-	github.com/apache/beam/sdks/v2 v2.77.0
 	github.com/apache/thrift v0.24.0 // indirect
 	github.com/avast/retry-go/v4 v4.7.0 // indirect
 	github.com/cespare/xxhash/v2 v2.3.0 // indirect

@@ -27,10 +27,8 @@ import (
 	"github.com/apache/beam/sdks/v2/go/pkg/beam/x/beamx"
 
 	"github.com/heft-project/heft/aggregate"
-	"github.com/heft-project/heft/fit"
 	"github.com/heft-project/heft/pipeline"
 	"github.com/heft-project/heft/pipeline/beam/stage"
-	"github.com/heft-project/heft/score"
 	"github.com/heft-project/heft/score/job"
 )
 
@@ -50,52 +48,62 @@ const (
 
 func main() { os.Exit(run(os.Args[1:], os.Stderr)) }
 
-// options are the command line beyond stage.Config.
+// options are the command line: heft score's shared flags (job.Flags),
+// the launcher's own, and Beam's (defined by its packages on the same set).
 type options struct {
-	cfg      stage.Config
-	format   string
-	estimand string
-	by       string
-	quiet    bool
+	job.Flags
+	model, out, format string
+	workers            int
+	partRows           int64
+	quiet              bool
 }
 
 func define(fs *flag.FlagSet) *options {
-	o := &options{cfg: stage.Config{Settings: stage.Settings{Columns: score.DefaultColumns(), Version: job.Version}}}
-	c, s := &o.cfg, &o.cfg.Settings
-	fs.StringVar(&s.ModelPath, "model", "", "model file from 'heft fit'")
-	fs.StringVar(&s.ModelPath, "m", "", "short for --model")
-	fs.StringVar(&c.Out, "output", "", "output directory: one file per input file, or per range of a large file's row groups, and _SUCCESS last")
-	fs.StringVar(&c.Out, "o", "", "short for --output")
+	o := &options{}
+	fs.StringVar(&o.model, "model", "", "model file from 'heft fit'")
+	fs.StringVar(&o.model, "m", "", "short for --model")
+	fs.StringVar(&o.out, "output", "", "output directory: one file per input file, or per range of a large file's row groups, and _SUCCESS last")
+	fs.StringVar(&o.out, "o", "", "short for --output")
 	fs.StringVar(&o.format, "format", "parquet", "parquet or arrow")
-	fs.StringVar(&o.estimand, "estimand", score.ATE, "weights for: ate, att, atc or overlap")
-	fs.BoolVar(&s.Policy.Stabilize, "stabilize", false, "multiply weights by the marginal share of the row's arm at fit")
-	fs.Float64Var(&s.Policy.Clip, "clip", 0, "bound propensities to [ε, 1−ε]")
-	fs.Float64Var(&s.Policy.Trim, "trim", 0, "zero the weight where e is outside [α, 1−α]")
-	fs.Float64Var(&s.Policy.TruncateQ, "truncate-quantile", 0, "cap weights at the fit sample's q-th weight quantile")
-	fs.StringVar(&s.Unseen, "unseen", fit.UnseenError, "categorical levels not seen at fit: error, or reference")
-	fs.BoolVar(&s.Predictions, "predictions", false, "also write the outcome models' predictions mu0 and mu1")
-	fs.StringVar(&s.Columns.Propensity, "propensity-column", s.Columns.Propensity, "name of the appended propensity column")
-	fs.StringVar(&s.Columns.Weight, "weight-column", s.Columns.Weight, "name of the appended weight column")
-	fs.StringVar(&s.Columns.InSupport, "in-support-column", s.Columns.InSupport, "name of the appended in-support column")
-	fs.StringVar(&s.Columns.Mu0, "mu0-column", s.Columns.Mu0, "name of the appended control-outcome prediction")
-	fs.StringVar(&s.Columns.Mu1, "mu1-column", s.Columns.Mu1, "name of the appended treated-outcome prediction")
-	fs.StringVar(&s.Compression, "compression", "snappy", "Parquet compression: snappy, zstd or none (spliced files keep the input's codec unless this is given)")
-	fs.Int64Var(&s.RowGroupRows, "row-group-rows", 131072, "rows per Parquet row group in the output (re-encodes every column)")
-	fs.BoolVar(&s.Reencode, "reencode", false, "decode and re-encode every column rather than copy the input's column chunks")
-	fs.IntVar(&s.BatchRows, "batch-rows", 65536, "rows per batch in flight")
-	fs.IntVar(&s.Workers, "workers", 1, "scoring goroutines per part (the runner runs parts in parallel)")
-	fs.StringVar(&c.StatePath, "state", "", "write the merged accumulator state here")
-	fs.StringVar(&c.ReportPath, "report", "", "write the report JSON here")
-	fs.StringVar(&o.by, "by", "", "segment columns: estimates and balance per segment")
-	fs.IntVar(&s.MinSegmentRows, "min-segment-rows", 100, "suppress segments with fewer rows than this in either arm")
-	fs.IntVar(&s.MaxSegments, "max-segments", 1000, "fail when there are more segments than this")
-	fs.Float64Var(&s.Gate.MaxSMD, "max-smd", 0, "gate: fail when any term's weighted |SMD| exceeds this")
-	fs.Float64Var(&s.Gate.MinESSShare, "min-ess-share", 0, "gate: fail when an arm's effective sample size is below this share of its rows")
-	fs.Float64Var(&s.Gate.MaxPSI, "max-psi", 0, "gate: fail when the propensity drift index since the fit exceeds this")
-	fs.Int64Var(&c.PartRows, "part-rows", stage.DefaultPartRows, "rows per unit of work: larger Parquet files are split into ranges of row groups")
+	o.Flags.Define(fs)
+	fs.IntVar(&o.workers, "workers", 1, "scoring goroutines per part (the runner runs parts in parallel)")
+	fs.Int64Var(&o.partRows, "part-rows", stage.DefaultPartRows, "rows per unit of work: larger Parquet files are split into ranges of row groups")
 	fs.BoolVar(&o.quiet, "quiet", false, "no summary and only warnings from the runner on stderr")
 	fs.BoolVar(&o.quiet, "q", false, "short for --quiet")
 	return o
+}
+
+// config is the job the flags describe.
+func (o *options) config(inputs []string, set map[string]bool) (stage.Config, error) {
+	f := &o.Flags
+	c := stage.Config{
+		Settings: stage.Settings{
+			ModelPath: o.model, Policy: f.Policy, Columns: f.Columns, Predictions: f.Columns.Predictions,
+			Unseen: f.Unseen, By: splitList(f.By), MinSegmentRows: f.MinSegmentRows, MaxSegments: f.MaxSegments,
+			Gate: f.Gate, Reencode: f.Reencode, Compression: f.Compression, CompressionSet: set["compression"],
+			RowGroupRows: f.RowGroupRows, RowGroupSet: set["row-group-rows"], BatchRows: f.BatchRows,
+			BatchSet: set["batch-rows"], Workers: o.workers, Version: job.Version,
+		},
+		Inputs: inputs, Out: o.out, StatePath: f.State, ReportPath: f.Report, PartRows: o.partRows,
+	}
+	c.Policy.Estimand = strings.ToLower(f.Estimand)
+	switch {
+	case len(inputs) == 0:
+		return c, errors.New("no INPUT given (see --help)")
+	case o.model == "":
+		return c, errors.New("--model is required")
+	case f.Report == "-":
+		return c, errors.New("--report - is not available: the report is written by the job's last step, give a file")
+	}
+	switch strings.ToLower(o.format) {
+	case "parquet":
+		c.Format = job.Parquet
+	case "arrow":
+		c.Format = job.Arrow
+	default:
+		return c, fmt.Errorf("--format must be parquet or arrow, not %q", o.format)
+	}
+	return c, nil
 }
 
 func run(args []string, stderr io.Writer) int {
@@ -123,31 +131,16 @@ func run(args []string, stderr io.Writer) int {
 		fmt.Fprintf(stderr, "heft-beam: %v\n", err)
 		return code
 	}
-	c := &o.cfg
-	c.Inputs = flag.Args()
-	if len(c.Inputs) == 0 {
-		return fail(ExitUsage, errors.New("no INPUT given (see --help)"))
-	}
-	if c.Settings.ModelPath == "" {
-		return fail(ExitUsage, errors.New("--model is required"))
-	}
-	switch o.format {
-	case "parquet":
-		c.Format = job.Parquet
-	case "arrow":
-		c.Format = job.Arrow
-	default:
-		return fail(ExitUsage, fmt.Errorf("--format must be parquet or arrow, not %q", o.format))
-	}
 	set := map[string]bool{}
 	flag.Visit(func(f *flag.Flag) { set[f.Name] = true })
-	c.CompressionSet, c.RowGroupSet, c.BatchSet = set["compression"], set["row-group-rows"], set["batch-rows"]
-	c.Policy.Estimand = o.estimand
-	c.By = splitList(o.by)
+	c, err := o.config(flag.Args(), set)
+	if err != nil {
+		return fail(ExitUsage, err)
+	}
 
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
 	defer stop()
-	j, err := stage.Plan(ctx, *c)
+	j, err := stage.Plan(ctx, c)
 	if err != nil {
 		return fail(exitCode(ctx, err), err)
 	}
