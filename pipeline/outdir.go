@@ -34,7 +34,8 @@ func NewOutDir(dir string) (*OutDir, error) {
 	}
 	// Temporary files of killed runs are never output (hidden, never renamed
 	// into place), but they hold disk space: sweep them, partition folders too.
-	filepath.WalkDir(dir, func(p string, d fs.DirEntry, err error) error {
+	// (The trailing separator makes the walk follow dir when it is a link.)
+	filepath.WalkDir(dir+string(filepath.Separator), func(p string, d fs.DirEntry, err error) error {
 		if err == nil && d.IsDir() {
 			RemoveStaleTemps(p, "")
 		}

@@ -34,7 +34,7 @@ func (mergeFn) AddInput(a Acc, r Result) (Acc, error) {
 	}
 	s, err := aggregate.UnmarshalState(fmt.Sprintf("the state of part %d", r.Index), r.State)
 	if err != nil {
-		return a, err
+		return a, marked(err, ExitInternal)
 	}
 	return a, mergeInto(&a, s)
 }
@@ -53,12 +53,18 @@ func (mergeFn) ExtractOutput(a Acc) Acc {
 	return a
 }
 
+// mergeInto merges s into a's state. A merge can fail on the table's
+// data (more segments than --max-segments once the parts' are put
+// together), as heft score would: its error is heft score's.
 func mergeInto(a *Acc, s *aggregate.State) error {
 	if a.State == nil {
 		a.State = s
 		return nil
 	}
-	return a.State.Merge(s)
+	if err := a.State.Merge(s); err != nil {
+		return marked(err, ExitInput)
+	}
+	return nil
 }
 
 // accWire is Acc as the runner moves it between workers: the state as its

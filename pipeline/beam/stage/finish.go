@@ -23,21 +23,24 @@ type finishFn struct {
 
 func (f *finishFn) ProcessElement(ctx context.Context, a Acc) error {
 	if len(a.Parts) != f.Parts {
-		return fmt.Errorf("the job merged %d parts of %d; the success marker is not written", len(a.Parts), f.Parts)
+		return marked(fmt.Errorf("the job merged %d parts of %d; the success marker is not written", len(a.Parts), f.Parts), ExitInternal)
 	}
 	for i, p := range a.Parts {
 		if p != i {
-			return fmt.Errorf("the job merged part %d where part %d was due; the success marker is not written", p, i)
+			return marked(fmt.Errorf("the job merged part %d where part %d was due; the success marker is not written", p, i), ExitInternal)
 		}
 	}
 	if s := a.State; s != nil {
 		s.Inputs = f.Inputs
 		s.RunSeconds = time.Since(time.Unix(0, f.Start)).Seconds()
 		if err := writeResults(s, f.StatePath, f.ReportPath); err != nil {
-			return err
+			return marked(err, ExitOutput)
 		}
 	}
-	return pipeline.WriteFileAtomic(filepath.Join(f.Out, pipeline.SuccessMarker), nil)
+	if err := pipeline.WriteFileAtomic(filepath.Join(f.Out, pipeline.SuccessMarker), nil); err != nil {
+		return marked(err, ExitOutput)
+	}
+	return nil
 }
 
 // writeResults writes the state and the report as heft score does, each

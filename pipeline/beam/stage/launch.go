@@ -71,6 +71,24 @@ func Plan(ctx context.Context, cfg Config) (*Job, error) {
 	if cfg.PartRows == 0 {
 		cfg.PartRows = DefaultPartRows
 	}
+	// Workers resolve paths against their own working directory: give them
+	// absolute ones. The report still lists the inputs as they were given.
+	for _, p := range []*string{&cfg.Out, &cfg.StatePath, &cfg.ReportPath} {
+		if *p == "" {
+			continue
+		}
+		abs, err := filepath.Abs(*p)
+		if err != nil {
+			return nil, usage("%s: %v", *p, err)
+		}
+		*p = abs
+	}
+	for _, p := range []string{cfg.StatePath, cfg.ReportPath} {
+		// Found now rather than after the whole table was scored.
+		if st, err := os.Stat(filepath.Dir(p)); p != "" && (err != nil || !st.IsDir()) {
+			return nil, &job.Error{Kind: job.KindOutput, Err: fmt.Errorf("%s: its directory does not exist", p)}
+		}
+	}
 	if err := s.Policy.Validate(); err != nil {
 		return nil, usage("%w", err)
 	}
@@ -134,7 +152,7 @@ func Plan(ctx context.Context, cfg Config) (*Job, error) {
 				return nil, usage("%s and %s would both be written to %s; pass their common parent directory instead", prev, in.Path, target)
 			}
 			targets[target] = in.Path
-			p := Part{Index: len(j.parts), Path: in.Path, Root: in.Root, Rel: in.Rel, Format: int(in.Format),
+			p := Part{Index: len(j.parts), Path: absPath(in.Path), Root: absPath(in.Root), Rel: in.Rel, Format: int(in.Format),
 				Size: in.Size, First: r.First, N: r.N, Rows: rows[k], Target: target}
 			for _, kv := range in.Partitions {
 				p.PartKeys = append(p.PartKeys, kv.Key)
@@ -157,6 +175,17 @@ func Plan(ctx context.Context, cfg Config) (*Job, error) {
 		return nil, &job.Error{Kind: job.KindOutput, Err: err}
 	}
 	return j, nil
+}
+
+// absPath is p made absolute, or p when it cannot be.
+func absPath(p string) string {
+	if p == "" {
+		return p
+	}
+	if abs, err := filepath.Abs(p); err == nil {
+		return abs
+	}
+	return p
 }
 
 // checkInputs checks every input against the model and the first input's
@@ -203,13 +232,16 @@ func rangeRows(rgs []int64, r pipeline.RowGroupRange) int64 {
 // the table (a run with another --part-rows leaves other names, say).
 func refuseStrangers(dir string, targets map[string]string) error {
 	var strangers []string
-	err := filepath.WalkDir(dir, func(p string, d fs.DirEntry, err error) error {
+	// With a trailing separator the walk follows dir when it is a link, as
+	// readers of the directory do.
+	root := dir + string(filepath.Separator)
+	err := filepath.WalkDir(root, func(p string, d fs.DirEntry, err error) error {
 		if err != nil {
 			return err
 		}
 		name := d.Name()
 		if d.IsDir() {
-			if p != dir && (strings.HasPrefix(name, ".") || strings.HasPrefix(name, "_")) {
+			if p != root && (strings.HasPrefix(name, ".") || strings.HasPrefix(name, "_")) {
 				return filepath.SkipDir
 			}
 			return nil

@@ -5,7 +5,6 @@ import (
 	"fmt"
 	"os"
 	"path/filepath"
-	"strings"
 
 	"github.com/apache/beam/sdks/v2/go/pkg/beam/log"
 
@@ -38,30 +37,9 @@ func (f *scoreFn) Setup(ctx context.Context) error {
 func (f *scoreFn) ProcessElement(ctx context.Context, p Part) (Result, error) {
 	r, err := scorePart(ctx, f.sc, &f.S, p)
 	if err != nil {
-		// Runners wrap a failed bundle's error in their own report (the
-		// plan, the stages); the marker lets the launcher find heft's.
-		return r, fmt.Errorf("%s%v", PartFailed, err)
+		return r, marked(err, ExitCode(err))
 	}
 	return r, nil
-}
-
-// PartFailed starts the error of a part that failed, inside whatever the
-// runner wraps around it; HeftError finds it.
-const PartFailed = "heft part failed: "
-
-// HeftError returns heft's message for the failed part in a runner's
-// error (the line after PartFailed), or "" when it has none.
-func HeftError(err error) string {
-	msg := err.Error()
-	i := strings.LastIndex(msg, PartFailed)
-	if i < 0 {
-		return ""
-	}
-	msg = msg[i+len(PartFailed):]
-	if j := strings.IndexByte(msg, '\n'); j >= 0 {
-		msg = msg[:j]
-	}
-	return msg
 }
 
 // scorePart scores p through the Runner heft score would use: spliced when

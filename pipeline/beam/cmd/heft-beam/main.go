@@ -32,18 +32,16 @@ import (
 	"github.com/heft-project/heft/score/job"
 )
 
-// Exit codes: heft score's (README.md, "Exit codes"), and ExitJob for a job
-// the runner reports failed.
+// Exit codes are heft score's, and ExitJob (see stage.ExitOK and below).
 const (
-	ExitOK          = 0
-	ExitInternal    = 1
-	ExitUsage       = 2
-	ExitInput       = 3
-	ExitModel       = 4
-	ExitOutput      = 6
-	ExitGate        = 7
-	ExitJob         = 8 // the runner reported the job failed; its message carries the worker's error
-	ExitInterrupted = 130
+	ExitOK          = stage.ExitOK
+	ExitUsage       = stage.ExitUsage
+	ExitInput       = stage.ExitInput
+	ExitModel       = stage.ExitModel
+	ExitOutput      = stage.ExitOutput
+	ExitGate        = stage.ExitGate
+	ExitJob         = stage.ExitJob
+	ExitInterrupted = stage.ExitInterrupted
 )
 
 func main() { os.Exit(run(os.Args[1:], os.Stderr)) }
@@ -116,7 +114,8 @@ func run(args []string, stderr io.Writer) int {
 			"--endpoint, --environment_type, --worker_binary, ...) are listed with the others.\n\n")
 		flag.PrintDefaults()
 	}
-	if err := flag.CommandLine.Parse(args); err != nil {
+	inputs, err := parse(flag.CommandLine, args)
+	if err != nil {
 		return ExitUsage
 	}
 	// A binary a runner started as a worker does its work in Init and exits.
@@ -133,7 +132,7 @@ func run(args []string, stderr io.Writer) int {
 	}
 	set := map[string]bool{}
 	flag.Visit(func(f *flag.Flag) { set[f.Name] = true })
-	c, err := o.config(flag.Args(), set)
+	c, err := o.config(inputs, set)
 	if err != nil {
 		return fail(ExitUsage, err)
 	}
@@ -142,7 +141,10 @@ func run(args []string, stderr io.Writer) int {
 	defer stop()
 	j, err := stage.Plan(ctx, c)
 	if err != nil {
-		return fail(exitCode(ctx, err), err)
+		if ctx.Err() != nil {
+			return fail(ExitInterrupted, err)
+		}
+		return fail(stage.ExitCode(err), err)
 	}
 	p, s := beam.NewPipelineWithRoot()
 	j.Build(s)
@@ -153,30 +155,39 @@ func run(args []string, stderr io.Writer) int {
 		if !o.quiet {
 			fmt.Fprintf(stderr, "heft-beam: the runner's report:\n%v\n", err)
 		}
-		msg := stage.HeftError(err)
-		if msg == "" {
-			msg = err.Error()
+		if msg, code, ok := stage.Failure(err); ok {
+			return fail(code, fmt.Errorf("the job failed; no %s was written: %s", pipeline.SuccessMarker, msg))
 		}
-		return fail(ExitJob, fmt.Errorf("the job failed; no %s was written: %s", pipeline.SuccessMarker, msg))
+		return fail(ExitJob, fmt.Errorf("the job failed; no %s was written: %w", pipeline.SuccessMarker, err))
 	}
-	return summary(c.ReportPath, o.quiet, stderr)
+	return summary(c.ReportPath, c.StatePath, o.quiet, stderr)
 }
 
 // summary prints the report's summary and turns a failed gate into its
-// exit code, as heft score does.
-func summary(reportPath string, quiet bool, stderr io.Writer) int {
-	if reportPath == "" {
+// exit code, as heft score does: from the report the job wrote, or from
+// its state when it wrote only that.
+func summary(reportPath, statePath string, quiet bool, stderr io.Writer) int {
+	var rep *aggregate.Report
+	switch {
+	case reportPath != "":
+		b, err := os.ReadFile(reportPath)
+		if err == nil {
+			rep = new(aggregate.Report)
+			err = json.Unmarshal(b, rep)
+		}
+		if err != nil {
+			fmt.Fprintf(stderr, "heft-beam: reading the report the job wrote: %v\n", err)
+			return ExitOutput
+		}
+	case statePath != "":
+		s, err := aggregate.ReadState(statePath)
+		if err != nil {
+			fmt.Fprintf(stderr, "heft-beam: reading the state the job wrote: %v\n", err)
+			return ExitOutput
+		}
+		rep = s.Report()
+	default:
 		return ExitOK
-	}
-	b, err := os.ReadFile(reportPath)
-	if err != nil {
-		fmt.Fprintf(stderr, "heft-beam: reading the report the job wrote: %v\n", err)
-		return ExitOutput
-	}
-	var rep aggregate.Report
-	if err := json.Unmarshal(b, &rep); err != nil {
-		fmt.Fprintf(stderr, "heft-beam: %s: %v\n", reportPath, err)
-		return ExitOutput
 	}
 	if !quiet {
 		rep.WriteText(stderr)
@@ -188,28 +199,23 @@ func summary(reportPath string, quiet bool, stderr io.Writer) int {
 	return ExitOK
 }
 
-// exitCode maps a launch error to its exit code, as heft score's does.
-func exitCode(ctx context.Context, err error) int {
-	var (
-		je *job.Error
-		pe *pipeline.Error
-	)
-	switch {
-	case ctx.Err() != nil || errors.Is(err, context.Canceled):
-		return ExitInterrupted
-	case errors.As(err, &je):
-		switch je.Kind {
-		case job.KindUsage:
-			return ExitUsage
-		case job.KindModel:
-			return ExitModel
-		case job.KindOutput:
-			return ExitOutput
+// parse parses args with fs, taking flags before and after the inputs
+// alike (as heft score does), and returns the inputs. "--" ends the flags.
+func parse(fs *flag.FlagSet, args []string) ([]string, error) {
+	var inputs []string
+	for {
+		if err := fs.Parse(args); err != nil {
+			return nil, err
 		}
-	case errors.As(err, &pe):
-		return ExitInput
+		rest := fs.Args()
+		if len(rest) == 0 {
+			return inputs, nil
+		}
+		if len(args) > len(rest) && args[len(args)-len(rest)-1] == "--" {
+			return append(inputs, rest...), nil
+		}
+		inputs, args = append(inputs, rest[0]), rest[1:]
 	}
-	return ExitInput
 }
 
 func splitList(s string) []string {

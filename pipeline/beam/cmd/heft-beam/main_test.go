@@ -54,7 +54,11 @@ func TestCommand(t *testing.T) {
 		{"input missing", []string{"-m", model, "-o", out, filepath.Join(dir, "nothing.parquet")}, ExitInput, "nothing.parquet"},
 		{"over the inputs", []string{"-m", model, "-o", data, data}, ExitUsage, "refusing to overwrite"},
 		{"gate", []string{"-q", "-m", model, "-o", gated, "--report", filepath.Join(dir, "gate.json"), "--max-smd", "0.000001", data}, ExitGate, "gate"},
-		{"ok", []string{"-q", "-m", model, "-o", out, "--part-rows", "20000", "--report", filepath.Join(dir, "r.json"), data}, ExitOK, ""},
+		{"gate on the state alone", []string{"-q", "-m", model, "-o", gated, "--state", filepath.Join(dir, "gate-state.json"), "--max-smd", "0.000001", data}, ExitGate, "gate"},
+		{"report directory missing", []string{"-q", "-m", model, "-o", gated, "--report", filepath.Join(dir, "nowhere", "r.json"), data}, ExitOutput, "nowhere"},
+		{"segments over the cap once merged", []string{"-q", "-m", model, "-o", filepath.Join(dir, "seg") + "/", "--part-rows", "20000", "--by", "year", "--max-segments", "1",
+			"--report", filepath.Join(dir, "seg.json"), data}, ExitInput, "segments"},
+		{"ok, flags after the input", []string{"-q", "-m", model, data, "-o", out, "--part-rows", "20000", "--report", filepath.Join(dir, "r.json")}, ExitOK, ""},
 	} {
 		t.Run(c.name, func(t *testing.T) {
 			r := heftBeam(t, c.args...)
@@ -70,8 +74,8 @@ func TestCommand(t *testing.T) {
 		t.Fatal("no success marker after the run that succeeded:", err)
 	}
 
-	// A value only a worker finds: the job fails with ExitJob and heft's
-	// message, and the directory has no success marker.
+	// A value only a worker finds: the job fails with heft score's exit
+	// code and message, and the directory has no success marker.
 	spoilt := filepath.Join(dir, "spoilt")
 	os.MkdirAll(spoilt, 0o755)
 	b, _ := os.ReadFile(filepath.Join(data, "year=2027", "demo.parquet"))
@@ -80,8 +84,8 @@ func TestCommand(t *testing.T) {
 	failed := filepath.Join(dir, "failed") + "/"
 	r := heftBeam(t, "-q", "-m", model, "-o", failed, "--part-rows", "10000", spoilt)
 	want := "heft-beam: the job failed; no _SUCCESS was written: " + filepath.Join(spoilt, "a.parquet") + ": row group 1: row 4321: column \"audit\": treatment value \"2\""
-	if r.code != ExitJob || !strings.Contains(r.stderr, want) {
-		t.Fatalf("a bad value in one part: exit %d, want %d with heft's message\n%s", r.code, ExitJob, r.stderr)
+	if r.code != ExitInput || !strings.Contains(r.stderr, want) {
+		t.Fatalf("a bad value in one part: exit %d, want %d with heft's message\n%s", r.code, ExitInput, r.stderr)
 	}
 	t.Logf("the failed job's message:\n%s", r.stderr)
 	if _, err := os.Stat(filepath.Join(failed, "_SUCCESS")); err == nil {
