@@ -9,7 +9,6 @@ import (
 
 	"github.com/apache/arrow-go/v18/arrow"
 	"github.com/apache/arrow-go/v18/arrow/array"
-	"github.com/apache/arrow-go/v18/arrow/memory"
 )
 
 // spliceSlice splices the row groups r of in to out, appending the rows of
@@ -35,27 +34,7 @@ func spliceSlice(t *testing.T, in, out string, r RowGroupRange, schema *arrow.Sc
 			rows += n
 		}
 	}
-	mem := memory.NewCheckedAllocator(memory.NewGoAllocator())
-	defer mem.AssertSize(t, 0)
-	s, err := NewSpliceSink(out, plan, schema, SpliceOptions{
-		Metadata: arrow.NewMetadata([]string{"heft.test"}, []string{"yes"}), Alloc: mem})
-	if err != nil {
-		t.Fatal(err)
-	}
-	for off := int64(0); off < rows; off += 333 {
-		app := appendedBatch(mem, start+off, min(333, rows-off))
-		rec := array.NewRecordBatch(schema, app.Columns(), app.NumRows())
-		app.Release()
-		err := s.Write(context.Background(), rec)
-		rec.Release()
-		if err != nil {
-			s.Abort()
-			t.Fatal(err)
-		}
-	}
-	if err := s.Close(); err != nil {
-		t.Fatal(err)
-	}
+	splicePlanned(t, plan, out, start, rows, schema, SpliceOptions{})
 	return start, rows
 }
 

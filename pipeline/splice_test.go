@@ -263,6 +263,13 @@ func spliceWith(t *testing.T, in, out string, rows int64, schema *arrow.Schema, 
 	if err != nil {
 		t.Fatal(err)
 	}
+	splicePlanned(t, plan, out, 0, rows, schema, opt)
+}
+
+// splicePlanned splices plan to out, appending rows [start, start+rows) of
+// appendedBatch in batches of 333 rows.
+func splicePlanned(t *testing.T, plan *SplicePlan, out string, start, rows int64, schema *arrow.Schema, opt SpliceOptions) {
+	t.Helper()
 	mem := memory.NewCheckedAllocator(memory.NewGoAllocator())
 	defer mem.AssertSize(t, 0)
 	opt.Metadata, opt.Alloc = arrow.NewMetadata([]string{"heft.test"}, []string{"yes"}), mem
@@ -270,8 +277,8 @@ func spliceWith(t *testing.T, in, out string, rows int64, schema *arrow.Schema, 
 	if err != nil {
 		t.Fatal(err)
 	}
-	for start := int64(0); start < rows; start += 333 {
-		app := appendedBatch(mem, start, min(333, rows-start))
+	for off := int64(0); off < rows; off += 333 {
+		app := appendedBatch(mem, start+off, min(333, rows-off))
 		rec := array.NewRecordBatch(schema, app.Columns(), app.NumRows())
 		app.Release()
 		err := s.Write(context.Background(), rec)

@@ -216,7 +216,7 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 			}
 		}
 	}
-	acfg := aggregate.Config{Model: m, Policy: f.Policy, By: splitList(f.By), MinSegmentRows: f.MinSegmentRows, MaxSegments: f.MaxSegments, Gate: f.Gate}
+	acfg := aggregate.Config{Model: m, Policy: f.Policy, By: f.ByColumns(), MinSegmentRows: f.MinSegmentRows, MaxSegments: f.MaxSegments, Gate: f.Gate}
 	// The accumulators run when something asks for their results; a plain
 	// scoring run only writes the table.
 	accumulate := f.State != "" || f.Report != "" || f.reportOnly || f.By != "" ||
@@ -227,7 +227,7 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 	var state *aggregate.State
 	prog := newProgress(env, total)
 	run := job.New(m, scorer, job.Options{
-		Columns: f.Columns, Unseen: f.Unseen, By: splitList(f.By), Format: format,
+		Columns: f.Columns, Unseen: f.Unseen, By: f.ByColumns(), Format: format,
 		Splice:      !f.Reencode && format == job.Parquet && (mode == outFile || mode == outDir),
 		Compression: f.Compression, CompressionSet: f.compressionSet,
 		RowGroupRows: f.RowGroupRows, RowGroupSet: f.rowGroupSet,

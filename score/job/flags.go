@@ -1,6 +1,8 @@
 package job
 
 import (
+	"strings"
+
 	"github.com/heft-project/heft/aggregate"
 	"github.com/heft-project/heft/fit"
 	"github.com/heft-project/heft/score"
@@ -34,6 +36,18 @@ type Flags struct {
 	MinSegmentRows int
 	MaxSegments    int
 	Gate           aggregate.Gate
+}
+
+// ByColumns is the --by value as column names: comma-separated, blanks
+// trimmed, empty names dropped.
+func (f *Flags) ByColumns() []string {
+	var out []string
+	for _, c := range strings.Split(f.By, ",") {
+		if c = strings.TrimSpace(c); c != "" {
+			out = append(out, c)
+		}
+	}
+	return out
 }
 
 // Define defines f's flags on fs with heft's defaults.

@@ -23,3 +23,15 @@ func TestBatchRowsFor(t *testing.T) {
 		}
 	}
 }
+
+func TestByColumns(t *testing.T) {
+	for _, c := range []struct {
+		by   string
+		want []string
+	}{{"", nil}, {"district", []string{"district"}}, {" district , year,,", []string{"district", "year"}}} {
+		f := Flags{By: c.by}
+		if got := f.ByColumns(); len(got) != len(c.want) || len(got) > 0 && got[len(got)-1] != c.want[len(c.want)-1] {
+			t.Errorf("--by %q: %q, want %q", c.by, got, c.want)
+		}
+	}
+}

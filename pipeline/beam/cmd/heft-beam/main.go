@@ -77,7 +77,7 @@ func (o *options) config(inputs []string, set map[string]bool) (stage.Config, er
 	c := stage.Config{
 		Settings: stage.Settings{
 			ModelPath: o.model, Policy: f.Policy, Columns: f.Columns, Predictions: f.Columns.Predictions,
-			Unseen: f.Unseen, By: splitList(f.By), MinSegmentRows: f.MinSegmentRows, MaxSegments: f.MaxSegments,
+			Unseen: f.Unseen, By: f.ByColumns(), MinSegmentRows: f.MinSegmentRows, MaxSegments: f.MaxSegments,
 			Gate: f.Gate, Reencode: f.Reencode, Compression: f.Compression, CompressionSet: set["compression"],
 			RowGroupRows: f.RowGroupRows, RowGroupSet: set["row-group-rows"], BatchRows: f.BatchRows,
 			BatchSet: set["batch-rows"], Workers: o.workers, Version: job.Version,
@@ -216,14 +216,4 @@ func parse(fs *flag.FlagSet, args []string) ([]string, error) {
 		}
 		inputs, args = append(inputs, rest[0]), rest[1:]
 	}
-}
-
-func splitList(s string) []string {
-	var out []string
-	for _, f := range strings.Split(s, ",") {
-		if f = strings.TrimSpace(f); f != "" {
-			out = append(out, f)
-		}
-	}
-	return out
 }
