@@ -69,6 +69,8 @@ func runJob(t *testing.T, cfg Config) (*Job, error) {
 // relative 1e-12; the success marker is written.
 func TestJobEqualsHeftScore(t *testing.T) {
 	data, model := table(t)
+	// One file as Arrow IPC: a part that is a whole non-Parquet file.
+	toArrow(t, filepath.Join(data, "year=2026", "part-00002.parquet"))
 	dir := t.TempDir()
 	cli := filepath.Join(dir, "cli") + "/"
 	heft(t, "score", "-m", model, "-o", cli, "--report", filepath.Join(dir, "cli.json"),
@@ -95,6 +97,15 @@ func TestJobEqualsHeftScore(t *testing.T) {
 					split++
 				}
 			}
+			arrowParts := 0
+			for _, p := range j.Parts() {
+				if pipeline.Format(p.Format) == pipeline.FormatArrowFile {
+					arrowParts++
+				}
+			}
+			if arrowParts != 1 {
+				t.Fatalf("%d Arrow parts, want 1", arrowParts)
+			}
 			if len(j.Parts()) < 6 || split < 3 {
 				t.Fatalf("%d parts, %d of them ranges of row groups: the large file was not split", len(j.Parts()), split)
 			}
@@ -113,6 +124,36 @@ func TestJobEqualsHeftScore(t *testing.T) {
 			json.Unmarshal(b, &fromState)
 			sameJSON(t, "the state's report", want, fromState)
 		})
+	}
+}
+
+// toArrow replaces the Parquet file path with an Arrow IPC file of the
+// same rows (path with the extension .arrow).
+func toArrow(t *testing.T, path string) {
+	t.Helper()
+	ctx := context.Background()
+	src, err := pipeline.Open(ctx, pipeline.Input{Path: path, Format: pipeline.FormatParquet}, pipeline.SourceOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	sink, err := pipeline.NewArrowFileSink(strings.TrimSuffix(path, ".parquet")+".arrow", src.Schema(), pipeline.ArrowSinkOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for src.Next(ctx) {
+		if err := sink.Write(ctx, src.RecordBatch()); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if err := src.Err(); err != nil {
+		t.Fatal(err)
+	}
+	src.Close()
+	if err := sink.Close(); err != nil {
+		t.Fatal(err)
+	}
+	if err := os.Remove(path); err != nil {
+		t.Fatal(err)
 	}
 }
 
