@@ -476,6 +476,16 @@ func (r *Report) WriteJSON(w io.Writer) error {
 	return err
 }
 
+// WriteFile writes the report's JSON (WriteJSON) to path atomically:
+// either the whole report appears there or nothing changes.
+func (r *Report) WriteFile(path string) error {
+	b, err := json.MarshalIndent(r, "", "  ")
+	if err != nil {
+		return fmt.Errorf("report: %w", err)
+	}
+	return writeAtomic(path, append(b, '\n'))
+}
+
 // WriteText writes a summary for a terminal: estimates with 95% confidence
 // intervals, effective sample sizes, the balance table, overlap counts,
 // segments, warnings and the caution.

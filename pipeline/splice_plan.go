@@ -129,9 +129,7 @@ func (p *SplicePlan) Slice(r RowGroupRange) (*SplicePlan, error) {
 	}
 	q.chunks = p.chunks[lo:hi:hi]
 	q.blooms = p.blooms[lo:hi:hi]
-	if p.offsetIndexes != nil {
-		q.offsetIndexes = p.offsetIndexes[lo:hi:hi]
-	}
+	q.offsetIndexes = p.offsetIndexes[lo:hi:hi]
 	q.rgSpans = p.rgSpans[lo:hi:hi]
 	q.chunkSpans = p.chunkSpans[lo:hi:hi]
 	q.sliced = true

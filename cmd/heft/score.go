@@ -221,9 +221,6 @@ func runScore(ctx context.Context, env *Env, f *scoreFlags, args []string) error
 	// scoring run only writes the table.
 	accumulate := f.State != "" || f.Report != "" || f.reportOnly || f.By != "" ||
 		f.Gate.MaxSMD > 0 || f.Gate.MinESSShare > 0 || f.Gate.MaxPSI > 0
-	if !accumulate && !f.Columns.Predictions {
-		scorer = scorer.WithoutOutcome()
-	}
 	var state *aggregate.State
 	prog := newProgress(env, total)
 	run := job.New(m, scorer, job.Options{
@@ -378,15 +375,7 @@ func writeReportJSON(env *Env, rep *aggregate.Report, path string) error {
 	if path == "-" {
 		return rep.WriteJSON(env.Stdout)
 	}
-	af, err := pipeline.CreateAtomic(path)
-	if err != nil {
-		return err
-	}
-	if err := rep.WriteJSON(af); err != nil {
-		af.Abort()
-		return err
-	}
-	return af.Commit()
+	return rep.WriteFile(path)
 }
 
 func isDir(p string) bool {

@@ -57,7 +57,7 @@ type Options struct {
 	Workers   int
 
 	// NeedOutcome: the accumulators or the predictions use the outcome, so
-	// it is read when the table has it.
+	// it is read when the table has it, and the outcome models are kept.
 	NeedOutcome bool
 	// RaiseMemoryLimit raises the process's soft memory limit to suit the
 	// columns read (MemoryLimitFor), never lowering it.
@@ -84,8 +84,12 @@ type Runner struct {
 }
 
 // New returns a Runner scoring with m through scorer (whose policy is
-// resolved against m).
+// resolved against m). Without NeedOutcome the scorer's outcome models are
+// dropped: nothing would use their predictions.
 func New(m *fit.Model, scorer *score.Scorer, opt Options) *Runner {
+	if !opt.NeedOutcome {
+		scorer = scorer.WithoutOutcome()
+	}
 	if opt.Alloc == nil {
 		opt.Alloc = memory.DefaultAllocator
 	}

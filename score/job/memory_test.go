@@ -1,6 +1,9 @@
 package job
 
-import "testing"
+import (
+	"slices"
+	"testing"
+)
 
 func TestMemoryLimitFor(t *testing.T) {
 	for _, c := range []struct {
@@ -30,7 +33,7 @@ func TestByColumns(t *testing.T) {
 		want []string
 	}{{"", nil}, {"district", []string{"district"}}, {" district , year,,", []string{"district", "year"}}} {
 		f := Flags{By: c.by}
-		if got := f.ByColumns(); len(got) != len(c.want) || len(got) > 0 && got[len(got)-1] != c.want[len(c.want)-1] {
+		if got := f.ByColumns(); !slices.Equal(got, c.want) {
 			t.Errorf("--by %q: %q, want %q", c.by, got, c.want)
 		}
 	}

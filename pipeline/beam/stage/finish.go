@@ -51,16 +51,10 @@ func writeResults(s *aggregate.State, statePath, reportPath string) error {
 			return fmt.Errorf("writing the state: %w", err)
 		}
 	}
-	if reportPath == "" {
-		return nil
+	if reportPath != "" {
+		if err := s.Report().WriteFile(reportPath); err != nil {
+			return fmt.Errorf("writing the report: %w", err)
+		}
 	}
-	af, err := pipeline.CreateAtomic(reportPath)
-	if err != nil {
-		return fmt.Errorf("writing the report: %w", err)
-	}
-	if err := s.Report().WriteJSON(af); err != nil {
-		af.Abort()
-		return fmt.Errorf("writing the report: %w", err)
-	}
-	return af.Commit()
+	return nil
 }

@@ -100,9 +100,9 @@ func Plan(ctx context.Context, cfg Config) (*Job, error) {
 		return nil, &job.Error{Kind: job.KindModel, Err: err}
 	}
 	s.Model = b
-	m, err := fit.Unmarshal(b)
+	m, err := decodeModel(s.ModelPath, b)
 	if err != nil {
-		return nil, &job.Error{Kind: job.KindModel, Err: fmt.Errorf("%s: %w", s.ModelPath, err)}
+		return nil, err
 	}
 	if s.Policy, err = s.Policy.Resolve(m); err != nil {
 		return nil, &job.Error{Kind: job.KindModel, Err: err}
@@ -110,7 +110,7 @@ func Plan(ctx context.Context, cfg Config) (*Job, error) {
 	if s.Predictions && m.Outcome == nil {
 		return nil, usage("--predictions needs outcome models; %s has none (fit with --outcome)", s.ModelPath)
 	}
-	sc, err := s.build(nil) // what every worker will build: check it here
+	sc, err := s.scoringFor(m, nil) // what every worker will build: check it here
 	if err != nil {
 		return nil, err
 	}
@@ -118,11 +118,11 @@ func Plan(ctx context.Context, cfg Config) (*Job, error) {
 	if err != nil {
 		return nil, err
 	}
-	for _, p := range []string{cfg.Out, cfg.StatePath, cfg.ReportPath} {
-		for _, in := range ins {
-			if in.Path == pipeline.Stdin {
-				return nil, usage("a Beam job reads files; standard input cannot be split across workers")
-			}
+	for _, in := range ins {
+		if in.Path == pipeline.Stdin {
+			return nil, usage("a Beam job reads files; standard input cannot be split across workers")
+		}
+		for _, p := range []string{cfg.StatePath, cfg.ReportPath} {
 			if p != "" && pipeline.SameFile(p, in.Path) {
 				return nil, usage("output %s is one of the inputs; refusing to overwrite it", p)
 			}
@@ -132,9 +132,28 @@ func Plan(ctx context.Context, cfg Config) (*Job, error) {
 		return nil, err
 	}
 	j := &Job{cfg: cfg, start: start}
-	targets := map[string]string{}
 	for _, in := range ins {
 		j.inputs = append(j.inputs, in.Path)
+	}
+	if j.parts, err = cut(ins, cfg); err != nil {
+		return nil, err
+	}
+	if err := refuseStrangers(cfg.Out, j.parts); err != nil {
+		return nil, err
+	}
+	if _, err := pipeline.NewOutDir(cfg.Out); err != nil {
+		return nil, &job.Error{Kind: job.KindOutput, Err: err}
+	}
+	return j, nil
+}
+
+// cut cuts the inputs into parts, each with its output file, and refuses
+// outputs that collide or that are inputs.
+func cut(ins []pipeline.Input, cfg Config) ([]Part, error) {
+	var parts []Part
+	var all []string
+	from := map[string]string{} // target → input
+	for _, in := range ins {
 		ranges, rows := []pipeline.RowGroupRange{{}}, []int64{-1}
 		if in.Format == pipeline.FormatParquet {
 			rgs, err := pipeline.RowGroups(in.Path)
@@ -147,34 +166,25 @@ func Plan(ctx context.Context, cfg Config) (*Job, error) {
 			}
 		}
 		for k, r := range ranges {
-			target := pipeline.Target(cfg.Out, partRel(in.Rel, r), s.Format.Ext())
-			if prev, ok := targets[target]; ok {
+			target := pipeline.Target(cfg.Out, partRel(in.Rel, r), cfg.Format.Ext())
+			if prev, ok := from[target]; ok {
 				return nil, usage("%s and %s would both be written to %s; pass their common parent directory instead", prev, in.Path, target)
 			}
-			targets[target] = in.Path
-			p := Part{Index: len(j.parts), Path: absPath(in.Path), Root: absPath(in.Root), Rel: in.Rel, Format: int(in.Format),
+			from[target] = in.Path
+			all = append(all, target)
+			p := Part{Index: len(parts), Path: absPath(in.Path), Root: absPath(in.Root), Rel: in.Rel, Format: int(in.Format),
 				Size: in.Size, First: r.First, N: r.N, Rows: rows[k], Target: target}
 			for _, kv := range in.Partitions {
 				p.PartKeys = append(p.PartKeys, kv.Key)
 				p.PartValues = append(p.PartValues, kv.Value)
 			}
-			j.parts = append(j.parts, p)
+			parts = append(parts, p)
 		}
-	}
-	var all []string
-	for _, p := range j.parts {
-		all = append(all, p.Target)
 	}
 	if err := pipeline.RefuseInputTargets(all, ins); err != nil {
 		return nil, &job.Error{Kind: job.KindUsage, Err: err}
 	}
-	if err := refuseStrangers(cfg.Out, targets); err != nil {
-		return nil, err
-	}
-	if _, err := pipeline.NewOutDir(cfg.Out); err != nil {
-		return nil, &job.Error{Kind: job.KindOutput, Err: err}
-	}
-	return j, nil
+	return parts, nil
 }
 
 // absPath is p made absolute, or p when it cannot be.
@@ -230,7 +240,11 @@ func rangeRows(rgs []int64, r pipeline.RowGroupRange) int64 {
 // refuseStrangers refuses an output directory holding data files this job
 // will not write: a reader of the directory would take them for part of
 // the table (a run with another --part-rows leaves other names, say).
-func refuseStrangers(dir string, targets map[string]string) error {
+func refuseStrangers(dir string, parts []Part) error {
+	targets := map[string]bool{}
+	for _, p := range parts {
+		targets[p.Target] = true
+	}
 	var strangers []string
 	// With a trailing separator the walk follows dir when it is a link, as
 	// readers of the directory do.
@@ -249,7 +263,7 @@ func refuseStrangers(dir string, targets map[string]string) error {
 		if _, known := pipeline.FormatOf(p); !known || strings.HasPrefix(name, ".") || strings.HasPrefix(name, "_") {
 			return nil
 		}
-		if _, ok := targets[p]; !ok {
+		if !targets[p] {
 			strangers = append(strangers, p)
 		}
 		return nil

@@ -47,22 +47,33 @@ type scoring struct {
 	acfg   aggregate.Config
 }
 
-// build decodes the model and makes the Runner every part of the job
-// scores with: the one heft score makes from the same flags.
+// build decodes the model and makes what a worker scores with (scoringFor).
 func (s *Settings) build(logf func(string, ...any)) (*scoring, error) {
-	m, err := fit.Unmarshal(s.Model)
+	m, err := decodeModel(s.ModelPath, s.Model)
 	if err != nil {
-		return nil, &job.Error{Kind: job.KindModel, Err: fmt.Errorf("%s: %w", s.ModelPath, err)}
+		return nil, err
 	}
+	return s.scoringFor(m, logf)
+}
+
+// decodeModel decodes a model file's bytes read from path.
+func decodeModel(path string, b []byte) (*fit.Model, error) {
+	m, err := fit.Unmarshal(b)
+	if err != nil {
+		return nil, &job.Error{Kind: job.KindModel, Err: fmt.Errorf("%s: %w", path, err)}
+	}
+	return m, nil
+}
+
+// scoringFor makes the Runner every part of the job scores with, for the
+// model m: the one heft score makes from the same flags.
+func (s *Settings) scoringFor(m *fit.Model, logf func(string, ...any)) (*scoring, error) {
 	sc, err := score.New(m, s.Policy)
 	if err != nil {
 		return nil, &job.Error{Kind: job.KindModel, Err: err}
 	}
 	cols := s.Columns
 	cols.Predictions = s.Predictions
-	if !s.Accumulate && !cols.Predictions {
-		sc = sc.WithoutOutcome()
-	}
 	r := job.New(m, sc, job.Options{
 		Columns: cols, Unseen: s.Unseen, By: s.By, Format: s.Format,
 		Splice:      !s.Reencode && s.Format == job.Parquet,
